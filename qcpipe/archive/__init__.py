@@ -1,0 +1,1 @@
+"""The archive: raw copies, quarantine, pre-QC store, versioned datasets, catalog."""

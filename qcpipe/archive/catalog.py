@@ -1,0 +1,170 @@
+"""The archive catalog: a SQLite file recording every raw file, dataset and run.
+
+Schema versioned with ordered migrations (``MIGRATIONS``); every change is
+made inside a transaction, so a crash leaves the previous state.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import sqlite3
+from contextlib import contextmanager
+from pathlib import Path
+
+MIGRATIONS = [
+    # 1: first schema
+    """
+    CREATE TABLE raw_files (
+        sha256 TEXT PRIMARY KEY,
+        size INTEGER NOT NULL,
+        original_name TEXT NOT NULL,
+        original_path TEXT NOT NULL,
+        archived_path TEXT,
+        station TEXT,
+        deployment TEXT,
+        layout TEXT,
+        time_start TEXT,
+        time_end TEXT,
+        first_seen TEXT NOT NULL,
+        status TEXT NOT NULL CHECK (status IN ('archived', 'quarantined')),
+        reason TEXT
+    );
+    CREATE TABLE datasets (
+        id INTEGER PRIMARY KEY AUTOINCREMENT,
+        path TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        deployment TEXT NOT NULL,
+        version INTEGER NOT NULL,
+        rules_name TEXT NOT NULL,
+        rules_sha256 TEXT NOT NULL,
+        register_sha256 TEXT NOT NULL,
+        software_version TEXT NOT NULL,
+        created TEXT NOT NULL,
+        samples INTEGER NOT NULL,
+        flag_counts TEXT NOT NULL,
+        raw_sha256 TEXT NOT NULL,
+        UNIQUE (deployment, version)
+    );
+    CREATE TABLE runs (
+        id INTEGER PRIMARY KEY AUTOINCREMENT,
+        started TEXT NOT NULL,
+        ended TEXT,
+        outcome TEXT,
+        counts TEXT
+    );
+    """,
+]
+
+
+def utc_now() -> str:
+    return dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+class Catalog:
+    """Thin access layer over the SQLite catalog; one short connection per operation."""
+
+    def __init__(self, path: str | Path):
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        with self._connect() as con:
+            self._migrate(con)
+
+    def _connect(self) -> sqlite3.Connection:
+        con = sqlite3.connect(self.path, timeout=30, isolation_level=None)
+        con.row_factory = sqlite3.Row
+        con.execute("PRAGMA journal_mode=WAL")
+        con.execute("PRAGMA foreign_keys=ON")
+        return con
+
+    @contextmanager
+    def transaction(self):
+        con = self._connect()
+        try:
+            con.execute("BEGIN IMMEDIATE")
+            yield con
+            con.execute("COMMIT")
+        except BaseException:
+            con.execute("ROLLBACK")
+            raise
+        finally:
+            con.close()
+
+    def _migrate(self, con: sqlite3.Connection) -> None:
+        current = con.execute("PRAGMA user_version").fetchone()[0]
+        for version, script in enumerate(MIGRATIONS[current:], start=current + 1):
+            con.execute("BEGIN IMMEDIATE")
+            try:
+                for stmt in filter(str.strip, script.split(";")):
+                    con.execute(stmt)
+                con.execute(f"PRAGMA user_version = {version}")
+                con.execute("COMMIT")
+            except BaseException:
+                con.execute("ROLLBACK")
+                raise
+
+    @property
+    def schema_version(self) -> int:
+        with self._connect() as con:
+            return con.execute("PRAGMA user_version").fetchone()[0]
+
+    # raw files -------------------------------------------------------------
+    def known_hashes(self) -> set[str]:
+        with self._connect() as con:
+            return {r[0] for r in con.execute("SELECT sha256 FROM raw_files")}
+
+    def record_raw(self, con: sqlite3.Connection, **row) -> None:
+        row.setdefault("first_seen", utc_now())
+        cols = ", ".join(row)
+        marks = ", ".join("?" for _ in row)
+        con.execute(f"INSERT OR REPLACE INTO raw_files ({cols}) VALUES ({marks})", tuple(row.values()))
+
+    def raw_files(self, **where) -> list[dict]:
+        return self._select("raw_files", where, "first_seen, original_name")
+
+    # datasets --------------------------------------------------------------
+    def latest_dataset(self, deployment: str) -> dict | None:
+        with self._connect() as con:
+            r = con.execute("SELECT * FROM datasets WHERE deployment = ? ORDER BY version DESC LIMIT 1",
+                            (deployment,)).fetchone()
+        return _row(r) if r else None
+
+    def record_dataset(self, con: sqlite3.Connection, **row) -> None:
+        for key in ("flag_counts", "raw_sha256"):
+            if not isinstance(row[key], str):
+                row[key] = json.dumps(row[key], sort_keys=True)
+        row.setdefault("created", utc_now())
+        cols = ", ".join(row)
+        con.execute(f"INSERT INTO datasets ({cols}) VALUES ({', '.join('?' for _ in row)})",
+                    tuple(row.values()))
+
+    def datasets(self, **where) -> list[dict]:
+        return self._select("datasets", where, "station, deployment, version")
+
+    # runs ------------------------------------------------------------------
+    def start_run(self) -> int:
+        with self.transaction() as con:
+            cur = con.execute("INSERT INTO runs (started) VALUES (?)", (utc_now(),))
+            return int(cur.lastrowid)
+
+    def end_run(self, run_id: int, outcome: str, counts: dict) -> None:
+        with self.transaction() as con:
+            con.execute("UPDATE runs SET ended = ?, outcome = ?, counts = ? WHERE id = ?",
+                        (utc_now(), outcome, json.dumps(counts, sort_keys=True, default=int), run_id))
+
+    def runs(self) -> list[dict]:
+        return self._select("runs", {}, "id")
+
+    def _select(self, table: str, where: dict, order: str) -> list[dict]:
+        clause = " AND ".join(f"{k} = ?" for k in where)
+        sql = f"SELECT * FROM {table}" + (f" WHERE {clause}" if clause else "") + f" ORDER BY {order}"
+        with self._connect() as con:
+            return [_row(r) for r in con.execute(sql, tuple(where.values()))]
+
+
+def _row(r: sqlite3.Row) -> dict:
+    d = dict(r)
+    for key in ("flag_counts", "raw_sha256", "counts"):
+        if key in d and isinstance(d[key], str):
+            d[key] = json.loads(d[key])
+    return d

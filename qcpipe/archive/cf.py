@@ -1,0 +1,215 @@
+"""CF-1.8 / ACDD-1.3 encoding of a QC'd station time series.
+
+One file per station and deployment: discrete sampling geometry
+``featureType = timeSeries`` with a single feature (CF-1.8 section 9.2:
+the instance dimension is omitted and instance variables are scalar), time
+in UTC as "seconds since 1970-01-01T00:00:00Z", a character station id with
+``cf_role = timeseries_id``, latitude, longitude and the height of the
+sensing point above the site's vertical datum.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import xarray as xr
+
+from ..checks import FLAG_MEANINGS, FLAG_VALUES
+
+#: metadata of each physical variable qcpipe writes (standard names from CF table v83)
+VARIABLE_META = {
+    "temperature": dict(long_name="temperature at the sensing point (water when immersed, air when emersed)",
+                        units="degC", valid_min=-40.0, valid_max=80.0),
+    "ph": dict(long_name="pH as reported by the sonde (scale of its calibration buffers)",
+               units="1", valid_min=0.0, valid_max=14.0),
+    "conductivity": dict(standard_name="sea_water_electrical_conductivity", long_name="electrical conductivity",
+                         units="S m-1", valid_min=0.0, valid_max=10.0),
+    "pressure": dict(standard_name="sea_water_pressure", long_name="absolute pressure at the sensor",
+                     units="Pa", valid_min=0.0, valid_max=2.0e6),
+    "water_level": dict(standard_name="water_surface_height_above_reference_datum",
+                        long_name="water level above the site's vertical datum", units="m",
+                        valid_min=-50.0, valid_max=50.0),
+    "probe_reading": dict(long_name="raw reading of the capacitive immersion probe"),
+    "wetness": dict(long_name="wetness index of the immersion probe (0 dry, 1 wet)", units="1",
+                    valid_min=0.0, valid_max=1.0),
+}
+
+#: CF standard name and long-name words of each check's flag variable
+CHECK_META = {
+    "gross_range": ("gross_range_test_quality_flag", "gross range test"),
+    "climatology": ("climatology_test_quality_flag", "climatology test"),
+    "spike": ("spike_test_quality_flag", "spike test"),
+    "rate_of_change": ("rate_of_change_test_quality_flag", "rate of change test"),
+    "flat_line": ("flat_line_test_quality_flag", "flat line (stuck value) test"),
+    "gap": ("gap_test_quality_flag", "gap test"),
+    "download_conflict": ("quality_flag", "test for values that differ between overlapping downloads"),
+    "aggregate": ("aggregate_quality_flag", "aggregate of all tests"),
+}
+
+IMMERSION_META = dict(long_name="immersion state of the sensing point",
+                      flag_values=np.array([0, 1, 2], dtype=np.int8),
+                      flag_meanings="emersed immersed unknown")
+
+
+def flag_name(variable: str, check: str) -> str:
+    """Name of the flag variable of ``check`` on ``variable`` (``<var>_qc`` for the aggregate)."""
+    return f"{variable}_qc" if check == "aggregate" else f"{variable}_qc_{check}"
+
+
+def _iso(t: np.datetime64) -> str:
+    return np.datetime_as_string(np.datetime64(t, "s"), unit="s") + "Z"
+
+
+def _duration_iso(seconds: float) -> str:
+    seconds = int(round(seconds))
+    d, rem = divmod(seconds, 86400)
+    h, rem = divmod(rem, 3600)
+    m, s = divmod(rem, 60)
+    return f"P{d}DT{h}H{m}M{s}S"
+
+
+def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, station, site, deployment,
+                     register_info, provenance: dict, version: int, history: str,
+                     raw_units: dict | None = None) -> tuple[xr.Dataset, dict]:
+    """Assemble the CF/ACDD dataset and its NetCDF encoding.
+
+    Parameters
+    ----------
+    time : datetime64[ns] array (UTC)
+    variables : {name: float array} physical variables (keys of ``VARIABLE_META``)
+    flags : {variable: {check: int8 array}} including "aggregate"
+    immersion : int8 array or None, immersion state (0 emersed, 1 immersed, 2 unknown)
+    station, site, deployment : register entries
+    register_info : the register's [register] table (creator, institution, license ...)
+    provenance : {"rules_name", "rules_sha256", "register_sha256", "raw_files": [(name, sha256)],
+                  "software_version", "notes": {var: text}}
+    version : dataset version number
+    history : one line for the ACDD/CF ``history`` attribute
+
+    Returns
+    -------
+    (xarray.Dataset, encoding dict for ``to_netcdf``)
+    """
+    time = np.asarray(time, dtype="datetime64[ns]")
+    n = time.size
+    coords = {
+        "time": ("time", time, dict(standard_name="time", long_name="time of the sample (UTC)", axis="T")),
+    }
+    ds = xr.Dataset(coords={k: v for k, v in coords.items()})
+    sid = station.id.encode("ascii")
+    ds["station_id"] = xr.DataArray(np.array(list(sid), dtype="S1"), dims=("name_strlen",),
+                                    attrs=dict(cf_role="timeseries_id", long_name="station identifier"))
+    ds["latitude"] = xr.DataArray(np.float64(station.latitude), attrs=dict(
+        standard_name="latitude", long_name="station latitude (WGS84)", units="degrees_north", axis="Y"))
+    ds["longitude"] = xr.DataArray(np.float64(station.longitude), attrs=dict(
+        standard_name="longitude", long_name="station longitude (WGS84)", units="degrees_east", axis="X"))
+    ds["sensor_height"] = xr.DataArray(np.float64(station.elevation_m), attrs=dict(
+        long_name=f"height of the sensing point above {site.vertical_datum}", units="m", positive="up",
+        axis="Z", vertical_datum=site.vertical_datum))
+    coord_names = "time latitude longitude sensor_height"
+
+    encoding: dict = {
+        "time": dict(units="seconds since 1970-01-01T00:00:00Z", calendar="standard", dtype="float64",
+                     _FillValue=None),
+        "latitude": dict(_FillValue=None), "longitude": dict(_FillValue=None),
+        "sensor_height": dict(_FillValue=None), "station_id": dict(_FillValue=None),
+    }
+    chunk = int(min(max(n, 1), 65536))
+    notes = provenance.get("notes", {})
+
+    for name, values in variables.items():
+        meta = dict(VARIABLE_META[name])
+        if name == "probe_reading":
+            meta["units"] = {"count": "1"}.get((raw_units or {}).get(name, "1"), (raw_units or {}).get(name, "1"))
+        fl = flags.get(name, {})
+        anc = [flag_name(name, c) for c in fl]
+        attrs = dict(meta)
+        attrs["coordinates"] = coord_names
+        if anc:
+            attrs["ancillary_variables"] = " ".join(anc)
+        if name in notes:
+            attrs["comment"] = notes[name]
+        ds[name] = xr.DataArray(np.asarray(values, dtype=np.float64), dims=("time",), attrs=attrs)
+        encoding[name] = dict(dtype="float64", _FillValue=np.float64(np.nan), zlib=True, complevel=4,
+                              shuffle=True, chunksizes=(chunk,))
+        for check, arr in fl.items():
+            std, words = CHECK_META[check]
+            fname = flag_name(name, check)
+            ds[fname] = xr.DataArray(np.asarray(arr, dtype=np.int8), dims=("time",), attrs=dict(
+                standard_name=std, long_name=f"{words} quality flag for {name}",
+                flag_values=FLAG_VALUES, flag_meanings=FLAG_MEANINGS,
+                valid_range=np.array([1, 9], dtype=np.int8),
+                coordinates=coord_names,
+                references="IOC Manuals and Guides 54, Vol. 3 (2013): primary quality flags"))
+            encoding[fname] = dict(dtype="int8", _FillValue=None, zlib=True, complevel=4, chunksizes=(chunk,))
+    if immersion is not None:
+        ds["immersion"] = xr.DataArray(np.asarray(immersion, dtype=np.int8), dims=("time",),
+                                       attrs=dict(IMMERSION_META, coordinates=coord_names))
+        encoding["immersion"] = dict(dtype="int8", _FillValue=None, zlib=True, complevel=4, chunksizes=(chunk,))
+
+    now = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    t0, t1 = (time[0], time[-1]) if n else (None, None)
+    step = float(np.median(np.diff(time).astype(np.int64)) / 1e9) if n > 1 else 0.0
+    info = register_info
+    dataset_id = f"qcpipe_{station.id}_{deployment.id}_v{version:03d}"
+    raw = provenance.get("raw_files", [])
+    names = ", ".join(v for v in variables if v in VARIABLE_META)
+    ds.attrs = {
+        "Conventions": "CF-1.8, ACDD-1.3",
+        "featureType": "timeSeries",
+        "cdm_data_type": "Station",
+        "title": f"Quality-controlled logger series, station {station.id} ({station.name}), deployment {deployment.id}",
+        "summary": (f"Time series of {names} from instrument {deployment.instrument} at station {station.id} "
+                    f"({station.name}) of site {site.name}, sensing point {station.elevation_m:g} m above "
+                    f"{site.vertical_datum}. Converted from raw logger downloads to UTC with clock-drift "
+                    "correction, trimmed to the deployment, and flagged by automated QC checks with the IOC "
+                    "primary flag scheme (1 pass, 2 not evaluated, 3 suspect, 4 fail, 9 missing)."),
+        "keywords": "intertidal, coastal, immersion, water level, sea water temperature, quality control",
+        "id": dataset_id,
+        "naming_authority": info.naming_authority,
+        "history": history,
+        "source": f"{deployment.instrument} logger ({', '.join(sorted(set(r[0] for r in raw)))})" if raw else "logger",
+        "processing_level": "Level 1: converted to physical units, UTC, automated QC flags attached",
+        "license": info.license,
+        "standard_name_vocabulary": "CF Standard Name Table v83",
+        "date_created": now,
+        "date_modified": now,
+        "creator_name": info.creator_name,
+        "creator_email": info.creator_email,
+        "creator_url": info.creator_url,
+        "institution": info.institution,
+        "publisher_name": info.institution or info.creator_name,
+        "project": info.name,
+        "platform": f"fixed station {station.id}",
+        "instrument": deployment.instrument,
+        "product_version": f"v{version:03d}",
+        "geospatial_lat_min": station.latitude, "geospatial_lat_max": station.latitude,
+        "geospatial_lat_units": "degrees_north",
+        "geospatial_lon_min": station.longitude, "geospatial_lon_max": station.longitude,
+        "geospatial_lon_units": "degrees_east",
+        "geospatial_vertical_min": station.elevation_m, "geospatial_vertical_max": station.elevation_m,
+        "geospatial_vertical_units": "m", "geospatial_vertical_positive": "up",
+        "time_coverage_start": _iso(t0) if n else "",
+        "time_coverage_end": _iso(t1) if n else "",
+        "time_coverage_duration": _duration_iso((time[-1] - time[0]).astype(np.int64) / 1e9) if n else "P0D",
+        "time_coverage_resolution": _duration_iso(step),
+        "station_id": station.id, "station_name": station.name, "site_id": site.id, "site_name": site.name,
+        "deployment_id": deployment.id,
+        "deployment_start": deployment.start.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "deployment_end": deployment.end.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "vertical_datum": site.vertical_datum,
+        "qcpipe_version": provenance["software_version"],
+        "qc_rule_set": provenance["rules_name"],
+        "qc_rule_set_sha256": provenance["rules_sha256"],
+        "station_register_sha256": provenance["register_sha256"],
+        "raw_file_names": " ".join(r[0] for r in raw),
+        "raw_file_sha256": " ".join(r[1] for r in raw),
+        "flag_scheme": "IOC Manuals and Guides 54, Vol. 3 (2013) primary flags; "
+                       "aggregate = worst of fail > suspect > pass over the checks that ran",
+    }
+    for key, value in provenance.get("extra_attrs", {}).items():
+        ds.attrs[key] = value
+    if "previous_version" in provenance:
+        ds.attrs["previous_version_id"] = provenance["previous_version"]
+    return ds, encoding

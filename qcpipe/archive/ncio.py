@@ -1,0 +1,42 @@
+"""All NetCDF reading and writing goes through here, under one process-wide lock.
+
+The netCDF4/HDF5 libraries are not thread-safe, and Prefect's default task
+runner uses threads, so every open/read/write holds ``NC_LOCK``.  This is a
+plain module (no Prefect objects), so flows that import it stay picklable.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+import xarray as xr
+
+from .store import atomic_path
+
+NC_LOCK = threading.RLock()
+
+
+def write_dataset_atomic(ds: xr.Dataset, final: str | Path, encoding: dict | None = None) -> Path:
+    """Write ``ds`` to NetCDF-4 at ``final`` via a temporary file and a rename."""
+    final = Path(final)
+    with NC_LOCK:
+        with atomic_path(final) as tmp:
+            ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
+    return final
+
+
+def read_dataset(path: str | Path, **kwargs) -> xr.Dataset:
+    """Open, load fully into memory and close a NetCDF file (so no handle outlives the lock)."""
+    with NC_LOCK:
+        with xr.open_dataset(path, engine="netcdf4", **kwargs) as ds:
+            return ds.load()
+
+
+def read_attrs(path: str | Path) -> dict:
+    """Global attributes of a NetCDF file (read under the lock)."""
+    import netCDF4
+
+    with NC_LOCK:
+        with netCDF4.Dataset(path) as nc:
+            return {k: nc.getncattr(k) for k in nc.ncattrs()}

@@ -1,0 +1,108 @@
+"""Archive paths and atomic writes.
+
+Layout of an archive folder (all names are ours)::
+
+    catalog.sqlite                                   the catalog (SQLite)
+    raw/<station>/<deployment>/<sha12>_<name>        copies of accepted raw files
+    quarantine/<sha12>_<name> (+ .reason.txt)        files that could not be used
+    ingested/<station>/<deployment>.nc               pre-QC level: merged, UTC, raw units
+    datasets/<station>/qcpipe_<station>_<deployment>_v<NNN>.nc   QC'd, CF/ACDD, versioned
+    conflicts/<deployment>.csv                       records whose values disagree between downloads
+    .prefect/                                        the orchestrator's own state
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+
+from ..config._load import check_safe_id
+
+_UNSAFE = re.compile(r"[^A-Za-z0-9_.\-]")
+
+
+def safe_file_name(name: str) -> str:
+    """A file name with anything but letters, digits, '-', '_', '.' replaced by '_'."""
+    base = _UNSAFE.sub("_", Path(name).name).lstrip(".") or "unnamed"
+    return base[:120]
+
+
+class ArchivePaths:
+    """Where each kind of thing lives in an archive folder; ids are checked to stay inside."""
+
+    def __init__(self, root: str | Path):
+        self.root = Path(root).resolve()
+
+    def _inside(self, p: Path) -> Path:
+        p = p.resolve()
+        if self.root not in p.parents and p != self.root:
+            raise ValueError(f"path {p} would leave the archive {self.root}")
+        return p
+
+    @property
+    def catalog(self) -> Path:
+        return self.root / "catalog.sqlite"
+
+    @property
+    def prefect_home(self) -> Path:
+        return self.root / ".prefect"
+
+    def raw_copy(self, station: str, deployment: str, sha256: str, name: str) -> Path:
+        check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")
+        return self._inside(self.root / "raw" / station / deployment / f"{sha256[:12]}_{safe_file_name(name)}")
+
+    def quarantine(self, sha256: str, name: str) -> Path:
+        return self._inside(self.root / "quarantine" / f"{sha256[:12]}_{safe_file_name(name)}")
+
+    def ingested(self, station: str, deployment: str) -> Path:
+        check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")
+        return self._inside(self.root / "ingested" / station / f"{deployment}.nc")
+
+    def dataset(self, station: str, deployment: str, version: int) -> Path:
+        check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")
+        return self._inside(self.root / "datasets" / station /
+                            f"qcpipe_{station}_{deployment}_v{version:03d}.nc")
+
+    def conflicts(self, deployment: str) -> Path:
+        check_safe_id(deployment, "deployment id")
+        return self._inside(self.root / "conflicts" / f"{deployment}.csv")
+
+
+@contextmanager
+def atomic_path(final: str | Path):
+    """Yield a temporary path beside ``final``; rename it over ``final`` on success.
+
+    The temporary file is in the same folder (same file system) so the
+    rename is atomic: readers see the old file or the complete new one,
+    never a half-written one.  On any error the temporary file is removed.
+    """
+    final = Path(final)
+    final.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".tmp", dir=final.parent)
+    os.close(fd)
+    tmp = Path(tmp)
+    try:
+        yield tmp
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, final)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def write_text_atomic(final: str | Path, text: str) -> Path:
+    with atomic_path(final) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+    return Path(final)
+
+
+def copy_atomic(src: str | Path, final: str | Path) -> Path:
+    """Copy ``src`` to ``final`` atomically (the source is only read)."""
+    with atomic_path(final) as tmp:
+        shutil.copyfile(src, tmp)
+    return Path(final)

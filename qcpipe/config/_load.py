@@ -1,0 +1,107 @@
+"""Reading TOML configuration files and turning validation errors into one line.
+
+Every message names the file, the key (dotted path, list items as
+``[i]`` or by their ``id``), what is wrong and how to fix it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import tomllib
+from pathlib import Path
+from typing import Any, TypeVar
+
+import pydantic
+
+from ..errors import ConfigError
+
+M = TypeVar("M", bound=pydantic.BaseModel)
+
+#: identifiers used in file names: letters, digits, '-', '_' and '.', not starting with '.'
+SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}$")
+
+
+def check_safe_id(value: str, what: str) -> str:
+    """Reject identifiers that could escape the archive when used in a path."""
+    if not isinstance(value, str) or not SAFE_ID.match(value) or ".." in value:
+        raise ValueError(
+            f"{what} {value!r} is not a safe identifier; use 1-64 letters, digits, "
+            "'-', '_' or '.', starting with a letter or digit (no '/', '..' or spaces)")
+    return value
+
+
+def read_toml(path: Path) -> dict[str, Any]:
+    """Parse a TOML file; syntax errors become a ConfigError naming file and line."""
+    path = Path(path)
+    try:
+        text = path.read_bytes().decode("utf-8")
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: file not found; check the path") from None
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{path}: not UTF-8 text (byte {err.start}); save the file as UTF-8") from None
+    except OSError as err:
+        raise ConfigError(f"{path}: cannot read ({err.strerror})") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"{path}: TOML syntax error: {err}; fix the line it names") from None
+
+
+def _key_path(loc: tuple, data: Any) -> str:
+    parts: list[str] = []
+    node = data
+    for item in loc:
+        if isinstance(item, int):
+            label = f"[{item}]"
+            try:
+                entry = node[item]
+                ident = entry.get("id") or entry.get("serial") if isinstance(entry, dict) else None
+                if ident:
+                    label = f"[{item}] (id {ident!r})"
+                node = entry
+            except (IndexError, KeyError, TypeError, AttributeError):
+                node = None
+            parts.append(label)
+        else:
+            parts.append(("." if parts else "") + str(item))
+            try:
+                node = node[item]
+            except (KeyError, TypeError, IndexError):
+                node = None
+    return "".join(parts) or "(top level)"
+
+
+def _hint(err: dict) -> str:
+    kind = err.get("type", "")
+    if kind == "missing":
+        return "add this key"
+    if kind == "extra_forbidden":
+        return "remove it or check its spelling"
+    return "correct the value"
+
+
+def validate(model: type[M], data: dict[str, Any], path: Path) -> M:
+    """Validate ``data`` against ``model``; raise one ConfigError naming file and key."""
+    try:
+        return model.model_validate(data)
+    except pydantic.ValidationError as exc:
+        errs = exc.errors(include_url=False)
+        first = errs[0]
+        key = _key_path(tuple(first["loc"]), data)
+        msg = first["msg"].removeprefix("Value error, ")
+        more = f" (and {len(errs) - 1} more problem{'s' if len(errs) > 2 else ''})" if len(errs) > 1 else ""
+        bad = ""
+        if first.get("type") not in ("missing",) and "input" in first and not isinstance(first["input"], (dict, list)):
+            bad = f" (got {first['input']!r})"
+        raise ConfigError(f"{path}: key {key}: {msg}{bad}; {_hint(first)}{more}") from None
+
+
+def content_sha256(data: Any) -> str:
+    """SHA-256 of a configuration's normalised content (sorted-key JSON).
+
+    Comments, key order and whitespace do not change it; values do.
+    """
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -1,0 +1,238 @@
+"""The station register: sites, stations, instruments and deployments.
+
+File format (TOML, our own)::
+
+    [register]
+    name = "..."                       # free text
+    [[site]]
+    id = "..."; name = "..."; vertical_datum = "..."
+    [[station]]
+    id, site, name, latitude, longitude, elevation_m   # sensing point above the site's datum
+    [[instrument]]
+    serial, kind, layout               # kind: immersion_probe | temperature | ph | conductivity | pressure
+    [[deployment]]
+    id, station, instrument, start, end, clock_offset   # start/end UTC; clock_offset "+01:00"
+    clock_check = { logger_time = 2026-10-20T11:02:10, reference_time = 2026-10-20T10:00:00Z }
+    probe_reference = { air = 410.0, water = 1180.0 }   # immersion probes only
+    pressure = { air_pressure_hpa = 1013.25, salinity = 34.0 }  # pressure loggers only
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+from pathlib import Path
+from typing import Literal
+
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_validator
+
+from ..errors import ConfigError
+from ._load import check_safe_id, content_sha256, read_toml, validate
+
+InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure"]
+
+_OFFSET_RE = re.compile(r"^([+-])(\d{2}):(\d{2})$")
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class RegisterInfo(_Strict):
+    name: str
+    description: str = ""
+    institution: str = ""
+    creator_name: str = ""
+    creator_email: str = ""
+    creator_url: str = ""
+    license: str = "CC-BY-4.0"
+    naming_authority: str = "org.example.qcpipe"
+
+
+class Site(_Strict):
+    id: str
+    name: str
+    vertical_datum: str = Field(description="name of the vertical datum that elevations refer to")
+    description: str = ""
+
+    @field_validator("id")
+    @classmethod
+    def _safe(cls, v: str) -> str:
+        return check_safe_id(v, "site id")
+
+
+class Station(_Strict):
+    id: str
+    site: str
+    name: str
+    latitude: float = Field(ge=-90, le=90)
+    longitude: float = Field(ge=-180, le=180)
+    elevation_m: float = Field(description="sensing point above the site's vertical datum, metres")
+    description: str = ""
+
+    @field_validator("id")
+    @classmethod
+    def _safe(cls, v: str) -> str:
+        return check_safe_id(v, "station id")
+
+
+class Instrument(_Strict):
+    serial: str
+    kind: InstrumentKind
+    layout: str
+    description: str = ""
+
+    @field_validator("serial")
+    @classmethod
+    def _safe(cls, v: str) -> str:
+        return check_safe_id(v, "instrument serial")
+
+
+class ClockCheck(_Strict):
+    """Logger clock read against a reference clock at recovery."""
+    logger_time: dt.datetime = Field(description="what the logger showed, in its own clock (no offset)")
+    reference_time: AwareDatetime
+
+    @field_validator("logger_time")
+    @classmethod
+    def _naive(cls, v: dt.datetime) -> dt.datetime:
+        if v.tzinfo is not None:
+            raise ValueError("logger_time is the logger's own clock reading; write it without an offset")
+        return v
+
+
+class ProbeReference(_Strict):
+    """Immersion-probe readings taken in air and in water (raw units)."""
+    air: float
+    water: float
+
+    @model_validator(mode="after")
+    def _distinct(self):
+        if self.air == self.water:
+            raise ValueError("air and water readings are equal; the probe cannot tell wet from dry")
+        return self
+
+
+class PressureSettings(_Strict):
+    air_pressure_hpa: float = Field(1013.25, gt=500, lt=1100)
+    salinity: float = Field(35.0, ge=0, le=42, description="practical salinity used for density")
+
+
+class Deployment(_Strict):
+    id: str
+    station: str
+    instrument: str
+    start: AwareDatetime
+    end: AwareDatetime
+    clock_offset: str = Field("+00:00", description="logger clock minus UTC, '+HH:MM'")
+    clock_set: AwareDatetime | None = Field(None, description="when the clock was last set (default: start)")
+    clock_check: ClockCheck | None = None
+    probe_reference: ProbeReference | None = None
+    pressure: PressureSettings | None = None
+
+    @field_validator("id")
+    @classmethod
+    def _safe(cls, v: str) -> str:
+        return check_safe_id(v, "deployment id")
+
+    @field_validator("clock_offset")
+    @classmethod
+    def _offset(cls, v: str) -> str:
+        m = _OFFSET_RE.match(v)
+        if not m or int(m.group(3)) >= 60 or int(m.group(2)) > 14:
+            raise ValueError("clock_offset must look like '+01:00' or '-03:30' (logger clock minus UTC)")
+        return v
+
+    @model_validator(mode="after")
+    def _window(self):
+        if self.end <= self.start:
+            raise ValueError(f"deployment end {self.end.isoformat()} is not after start {self.start.isoformat()}; swap or correct them")
+        return self
+
+    @property
+    def offset_seconds(self) -> float:
+        m = _OFFSET_RE.match(self.clock_offset)
+        sign = 1 if m.group(1) == "+" else -1
+        return sign * (int(m.group(2)) * 3600 + int(m.group(3)) * 60)
+
+
+class Register(_Strict):
+    info: RegisterInfo = Field(alias="register")
+    site: list[Site]
+    station: list[Station]
+    instrument: list[Instrument]
+    deployment: list[Deployment] = []
+
+    @model_validator(mode="after")
+    def _links(self):
+        def unique(items, attr, what):
+            seen = set()
+            for i, it in enumerate(items):
+                key = getattr(it, attr)
+                if key in seen:
+                    raise ValueError(f"{what} {key!r} appears twice ([{i}]); give each a unique {attr}")
+                seen.add(key)
+            return seen
+        sites = unique(self.site, "id", "site")
+        stations = unique(self.station, "id", "station")
+        serials = unique(self.instrument, "serial", "instrument")
+        unique(self.deployment, "id", "deployment")
+        for st in self.station:
+            if st.site not in sites:
+                raise ValueError(f"station {st.id!r} names site {st.site!r}, which is not in [[site]]")
+        kinds = {i.serial: i.kind for i in self.instrument}
+        for d in self.deployment:
+            if d.station not in stations:
+                raise ValueError(f"deployment {d.id!r} names station {d.station!r}, which is not in [[station]]")
+            if d.instrument not in serials:
+                raise ValueError(f"deployment {d.id!r} names instrument {d.instrument!r}, which is not in [[instrument]]")
+            if d.probe_reference is not None and kinds[d.instrument] != "immersion_probe":
+                raise ValueError(f"deployment {d.id!r}: probe_reference is only for immersion probes")
+        by_inst: dict[str, list[Deployment]] = {}
+        for d in self.deployment:
+            by_inst.setdefault(d.instrument, []).append(d)
+        for serial, deps in by_inst.items():
+            deps = sorted(deps, key=lambda d: d.start)
+            for a, b in zip(deps, deps[1:]):
+                if b.start < a.end:
+                    raise ValueError(f"deployments {a.id!r} and {b.id!r} of instrument {serial!r} overlap in time; "
+                                     "an instrument can be in one place at a time")
+        return self
+
+    # lookups -------------------------------------------------------------
+    def station_by_id(self, station_id: str) -> Station:
+        return next(s for s in self.station if s.id == station_id)
+
+    def site_by_id(self, site_id: str) -> Site:
+        return next(s for s in self.site if s.id == site_id)
+
+    def instrument_by_serial(self, serial: str) -> Instrument | None:
+        return next((i for i in self.instrument if i.serial == serial), None)
+
+    def deployment_by_id(self, dep_id: str) -> Deployment:
+        return next(d for d in self.deployment if d.id == dep_id)
+
+    def deployments_of(self, serial: str) -> list[Deployment]:
+        return [d for d in self.deployment if d.instrument == serial]
+
+
+class LoadedRegister:
+    """A validated register with the path and content hash it came from."""
+
+    def __init__(self, model: Register, path: Path, sha256: str):
+        self.model, self.path, self.sha256 = model, path, sha256
+
+    def __getattr__(self, name):
+        return getattr(self.model, name)
+
+
+def load_register(path: str | Path) -> LoadedRegister:
+    """Read and validate a station register; raise ConfigError naming file and key."""
+    path = Path(path)
+    data = read_toml(path)
+    model = validate(Register, data, path)
+    return LoadedRegister(model, path, content_sha256(data))
+
+
+__all__ = ["Register", "Site", "Station", "Instrument", "Deployment", "ClockCheck",
+           "ProbeReference", "PressureSettings", "load_register", "LoadedRegister", "ConfigError"]

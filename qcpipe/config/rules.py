@@ -1,0 +1,240 @@
+"""Rule sets: the parameters of each QC check, per variable and optionally per station.
+
+File format (TOML, our own)::
+
+    [rule_set]
+    name = "..."
+    [variable.temperature]
+    units = "degC"                      # the units every threshold below is in
+    gross_range = { sensor_min = -5, sensor_max = 45, expected_min = -2, expected_max = 38 }
+    spike = { half_window = "30 min", suspect = 2.0, fail = 5.0 }
+    rate_of_change = { window = "25 h", n_sigma = 5 }
+    flat_line = { tolerance = 0.001, suspect_after = "2 h", fail_after = "6 h" }
+    gap = { max_gap = "45 min" }
+    [[variable.temperature.climatology]]
+    months = [12, 1, 2]; min = 2.0; max = 18.0
+    [station.<station id>.variable.temperature]  # per-station overrides, merged key by key
+    spike = { suspect = 3.0 }
+
+Durations are text ("45 min"); thresholds are numbers in the variable's ``units``.
+"""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+from ..errors import ConfigError
+from ..units import seconds_from_duration
+from ._load import check_safe_id, content_sha256, read_toml, validate
+
+#: stored units of each variable the checks can see
+VARIABLE_UNITS = {
+    "temperature": "degC",
+    "ph": "1",
+    "conductivity": "S m-1",
+    "pressure": "Pa",
+    "water_level": "m",
+    "wetness": "1",
+}
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _duration(v: Any) -> float:
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        raise ValueError(f"durations are text with a unit, e.g. '{v} min'")
+    s = seconds_from_duration(v)
+    if s <= 0:
+        raise ValueError(f"duration {v!r} must be longer than zero")
+    return s
+
+
+class GrossRange(_Strict):
+    sensor_min: float
+    sensor_max: float
+    expected_min: float | None = None
+    expected_max: float | None = None
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.sensor_min >= self.sensor_max:
+            raise ValueError(f"sensor_min {self.sensor_min} must be below sensor_max {self.sensor_max}")
+        if (self.expected_min is None) != (self.expected_max is None):
+            raise ValueError("give both expected_min and expected_max, or neither")
+        if self.expected_min is not None:
+            if self.expected_min >= self.expected_max:
+                raise ValueError(f"expected_min {self.expected_min} must be below expected_max {self.expected_max}")
+            if self.expected_min < self.sensor_min or self.expected_max > self.sensor_max:
+                raise ValueError("expected limits must lie inside the sensor limits")
+        return self
+
+
+class Season(_Strict):
+    months: list[int] = Field(min_length=1)
+    min: float
+    max: float
+
+    @field_validator("months")
+    @classmethod
+    def _months(cls, v):
+        bad = [m for m in v if not 1 <= m <= 12]
+        if bad:
+            raise ValueError(f"months must be 1..12, got {bad}")
+        return v
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.min >= self.max:
+            raise ValueError(f"min {self.min} must be below max {self.max}")
+        return self
+
+
+class Spike(_Strict):
+    half_window: float = Field(description="seconds either side (text in the file)")
+    suspect: float = Field(gt=0)
+    fail: float = Field(gt=0)
+    min_neighbours: int = Field(2, ge=1)
+
+    _d = field_validator("half_window", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.fail < self.suspect:
+            raise ValueError(f"fail {self.fail} must not be below suspect {self.suspect}")
+        return self
+
+
+class RateOfChange(_Strict):
+    window: float
+    n_sigma: float = Field(gt=0)
+    min_samples: int = Field(3, ge=2)
+
+    _d = field_validator("window", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+
+class FlatLine(_Strict):
+    tolerance: float = Field(ge=0)
+    suspect_after: float
+    fail_after: float
+
+    _d = field_validator("suspect_after", "fail_after", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.fail_after < self.suspect_after:
+            raise ValueError("fail_after must not be shorter than suspect_after")
+        return self
+
+
+class Gap(_Strict):
+    max_gap: float
+
+    _d = field_validator("max_gap", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+
+class VariableRules(_Strict):
+    units: str
+    gross_range: GrossRange | None = None
+    climatology: list[Season] | None = None
+    spike: Spike | None = None
+    rate_of_change: RateOfChange | None = None
+    flat_line: FlatLine | None = None
+    gap: Gap | None = None
+
+    def checks(self) -> list[str]:
+        return [name for name in CHECK_ORDER if getattr(self, name) is not None]
+
+
+CHECK_ORDER = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", "gap")
+
+
+class RuleSetInfo(_Strict):
+    name: str
+    description: str = ""
+
+    @field_validator("name")
+    @classmethod
+    def _safe(cls, v):
+        return check_safe_id(v, "rule set name")
+
+
+class _RuleFile(_Strict):
+    rule_set: RuleSetInfo
+    variable: dict[str, dict[str, Any]] = {}
+    station: dict[str, dict[str, Any]] = {}
+
+
+def _merge(base: dict, over: dict) -> dict:
+    out = copy.deepcopy(base)
+    for k, v in over.items():
+        if isinstance(v, dict) and isinstance(out.get(k), dict):
+            out[k] = _merge(out[k], v)
+        else:
+            out[k] = copy.deepcopy(v)
+    return out
+
+
+class RuleSet:
+    """A validated rule set: effective rules per (station, variable) and their hashes."""
+
+    def __init__(self, path: Path, data: dict, info: RuleSetInfo, effective: dict, raw_effective: dict):
+        self.path, self.data, self.info = path, data, info
+        self._effective = effective          # (station or None, variable) -> VariableRules
+        self._raw = raw_effective            # same keys -> merged dict (for hashing)
+        self.sha256 = content_sha256(data)
+
+    @property
+    def name(self) -> str:
+        return self.info.name
+
+    def for_variable(self, variable: str, station: str | None = None) -> VariableRules | None:
+        return self._effective.get((station, variable)) or self._effective.get((None, variable))
+
+    def effective_sha256(self, variable: str, station: str | None = None) -> str | None:
+        raw = self._raw.get((station, variable), self._raw.get((None, variable)))
+        return None if raw is None else content_sha256(raw)
+
+
+def _validate_variable(path: Path, where: str, name: str, body: dict) -> VariableRules:
+    if name not in VARIABLE_UNITS:
+        raise ConfigError(f"{path}: key {where}: unknown variable {name!r}; "
+                          f"use one of {', '.join(sorted(VARIABLE_UNITS))}")
+    try:
+        rules = validate(VariableRules, body, path)
+    except ConfigError as err:
+        raise ConfigError(str(err).replace(f"{path}: key ", f"{path}: key {where}.", 1)) from None
+    if rules.units != VARIABLE_UNITS[name]:
+        raise ConfigError(f"{path}: key {where}.units: thresholds for {name} must be in "
+                          f"{VARIABLE_UNITS[name]!r}, got {rules.units!r}; convert them and set units = "
+                          f"\"{VARIABLE_UNITS[name]}\"")
+    return rules
+
+
+def load_rules(path: str | Path) -> RuleSet:
+    """Read and validate a rule set; raise ConfigError naming file and key."""
+    path = Path(path)
+    data = read_toml(path)
+    top = validate(_RuleFile, data, path)
+    effective, raw = {}, {}
+    for var, body in top.variable.items():
+        effective[(None, var)] = _validate_variable(path, f"variable.{var}", var, body)
+        raw[(None, var)] = body
+    for st, stbody in top.station.items():
+        try:
+            check_safe_id(st, "station id")
+        except ValueError as err:
+            raise ConfigError(f"{path}: key station.{st}: {err}") from None
+        extra = set(stbody) - {"variable"}
+        if extra:
+            raise ConfigError(f"{path}: key station.{st}: unknown key(s) {sorted(extra)}; only 'variable' tables go here")
+        for var, body in stbody.get("variable", {}).items():
+            merged = _merge(top.variable.get(var, {}), body)
+            effective[(st, var)] = _validate_variable(path, f"station.{st}.variable.{var}", var, merged)
+            raw[(st, var)] = merged
+    return RuleSet(path, data, top.rule_set, effective, raw)

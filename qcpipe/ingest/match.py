@@ -1,0 +1,115 @@
+"""Read one raw file, match it to an instrument and deployment, and put it on UTC.
+
+``ingest_file`` is pure apart from reading the file: it returns an
+:class:`IngestedFile` or raises :class:`FileRejected` with a one-line reason.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..config.layouts import LoadedLayouts
+from ..config.register import Deployment, LoadedRegister
+from ..errors import MatchError, ParseError, QcpipeError
+from .discover import RawFile
+from .readers import RawTable, read_raw_file
+from .timebase import drift_corrected, utc_from_logger_time, window_mask
+
+
+class FileRejected(QcpipeError):
+    """A raw file that goes to quarantine; ``str(err)`` is the reason."""
+
+
+@dataclass
+class IngestedFile:
+    raw: RawFile
+    layout: str
+    serial: str
+    kind: str
+    station: str
+    deployment: str
+    time: np.ndarray                      # UTC, drift-corrected, inside the deployment window
+    values: dict[str, np.ndarray]         # raw units
+    units: dict[str, str]
+    counts: dict[str, int] = field(default_factory=dict)
+    clock_correction_s: float = 0.0       # drift removed at the clock check (logger minus reference)
+
+
+def _to_utc(logger_time: np.ndarray, dep: Deployment) -> tuple[np.ndarray, float]:
+    t = utc_from_logger_time(logger_time, offset_s=dep.offset_seconds)
+    if dep.clock_check is None:
+        return t, 0.0
+    check_logger = utc_from_logger_time(np.array([np.datetime64(dep.clock_check.logger_time, "ns")]),
+                                        offset_s=dep.offset_seconds)[0]
+    ref = np.datetime64(dep.clock_check.reference_time.replace(tzinfo=None) -
+                        dep.clock_check.reference_time.utcoffset(), "ns")
+    clock_set = dep.clock_set or dep.start
+    t0 = np.datetime64(clock_set.replace(tzinfo=None) - clock_set.utcoffset(), "ns")
+    err = float((check_logger - ref).astype(np.int64)) / 1e9
+    return drift_corrected(t, clock_set=t0, check_logger=check_logger, check_reference=ref), err
+
+
+def _naive_utc(t) -> np.datetime64:
+    return np.datetime64(t.replace(tzinfo=None) - t.utcoffset(), "ns")
+
+
+def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
+    candidates = [(name, lay) for name, lay in layouts.layouts.items() if lay.reads(raw.name)]
+    if not candidates:
+        globs = ", ".join(f"{n}: {lay.file_glob!r}" for n, lay in layouts.layouts.items())
+        raise FileRejected(f"{raw.name}: no logger layout reads this file name ({globs}); "
+                           "rename the file or add a layout")
+    errors = []
+    for name, lay in candidates:
+        try:
+            return read_raw_file(raw.path, lay, name)
+        except ParseError as err:
+            errors.append(f"[{name}] {err}" if len(candidates) > 1 else str(err))
+    raise FileRejected("; ".join(errors))
+
+
+def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) -> IngestedFile:
+    """Parse ``raw``, find its instrument and deployment, convert times to UTC and trim.
+
+    Raises FileRejected (a one-line reason naming file, line or key and what
+    to do) when the file cannot be read or matches no deployment.
+    """
+    table = _read_with_layouts(raw, layouts)
+    inst = register.instrument_by_serial(table.serial)
+    if inst is None:
+        raise FileRejected(f"{raw.name}: serial {table.serial!r} is not in the station register "
+                           f"{register.path.name}; add an [[instrument]] and [[deployment]] for it")
+    if inst.layout != table.layout_name:
+        raise FileRejected(f"{raw.name}: read with layout {table.layout_name!r} but instrument {inst.serial!r} "
+                           f"uses layout {inst.layout!r}; check the file's origin or the register")
+    deps = register.deployments_of(inst.serial)
+    if not deps:
+        raise FileRejected(f"{raw.name}: instrument {inst.serial!r} has no [[deployment]] in "
+                           f"{register.path.name}; add one with station, start and end")
+    best = None
+    for dep in deps:
+        t, err = _to_utc(table.logger_time, dep)
+        inside = window_mask(t, start=_naive_utc(dep.start), end=_naive_utc(dep.end))
+        n_in = int(inside.sum())
+        if best is None or n_in > best[0]:
+            best = (n_in, dep, t, inside, err)
+    n_in, dep, t, inside, err = best
+    if n_in == 0:
+        lo, hi = (np.datetime_as_string(x, unit="m") for x in (t.min(), t.max()))
+        raise FileRejected(f"{raw.name}: its records ({lo} to {hi} UTC) fall in no deployment of instrument "
+                           f"{inst.serial!r}; check the deployment dates and clock_offset in the register")
+    start, end = _naive_utc(dep.start), _naive_utc(dep.end)
+    counts = dict(table.counts)
+    counts["records"] = int(len(table))
+    counts["pre_deployment"] = int(np.count_nonzero(t < start))
+    counts["post_recovery"] = int(np.count_nonzero(t > end))
+    counts["in_deployment"] = n_in
+    return IngestedFile(raw=raw, layout=table.layout_name, serial=inst.serial, kind=inst.kind,
+                        station=dep.station, deployment=dep.id, time=t[inside],
+                        values={k: v[inside] for k, v in table.values.items()}, units=table.units,
+                        counts=counts, clock_correction_s=err)
+
+
+__all__ = ["FileRejected", "IngestedFile", "ingest_file", "MatchError"]
