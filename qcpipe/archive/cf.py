@@ -93,12 +93,12 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     """
     time = np.asarray(time, dtype="datetime64[ns]")
     n = time.size
-    coords = {
-        "time": ("time", time, dict(standard_name="time", long_name="time of the sample (UTC)", axis="T")),
-    }
-    ds = xr.Dataset(coords={k: v for k, v in coords.items()})
-    sid = station.id.encode("ascii")
-    ds["station_id"] = xr.DataArray(np.array(list(sid), dtype="S1"), dims=("name_strlen",),
+    # time written as numbers with the units spelled exactly as CF/ACDD readers expect
+    seconds = (time.astype(np.int64) / 1e9).astype(np.float64)
+    ds = xr.Dataset(coords={"time": ("time", seconds, dict(
+        standard_name="time", long_name="time of the sample (UTC)", axis="T",
+        units="seconds since 1970-01-01T00:00:00Z", calendar="standard"))})
+    ds["station_id"] = xr.DataArray(np.array(station.id.encode("ascii"), dtype=f"S{len(station.id)}"),
                                     attrs=dict(cf_role="timeseries_id", long_name="station identifier"))
     ds["latitude"] = xr.DataArray(np.float64(station.latitude), attrs=dict(
         standard_name="latitude", long_name="station latitude (WGS84)", units="degrees_north", axis="Y"))
@@ -107,13 +107,13 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     ds["sensor_height"] = xr.DataArray(np.float64(station.elevation_m), attrs=dict(
         long_name=f"height of the sensing point above {site.vertical_datum}", units="m", positive="up",
         axis="Z", vertical_datum=site.vertical_datum))
-    coord_names = "time latitude longitude sensor_height"
+    coord_names = "time latitude longitude sensor_height station_id"
 
     encoding: dict = {
-        "time": dict(units="seconds since 1970-01-01T00:00:00Z", calendar="standard", dtype="float64",
-                     _FillValue=None),
+        "time": dict(dtype="float64", _FillValue=None),
         "latitude": dict(_FillValue=None), "longitude": dict(_FillValue=None),
-        "sensor_height": dict(_FillValue=None), "station_id": dict(_FillValue=None),
+        "sensor_height": dict(_FillValue=None),
+        "station_id": dict(dtype="S1", char_dim_name="name_strlen", _FillValue=None),
     }
     chunk = int(min(max(n, 1), 65536))
     notes = provenance.get("notes", {})

@@ -133,7 +133,7 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> Ra
         if layout.decimal == ",":
             col = col.str.replace(",", ".", regex=False)
         is_missing = col.isin(missing).to_numpy()
-        num = pd.to_numeric(col.where(~is_missing, None), errors="coerce").to_numpy(dtype=float)
+        num = np.array(pd.to_numeric(col.where(~is_missing, None), errors="coerce"), dtype=np.float64)
         bad_v = np.flatnonzero(np.isnan(num) & ~is_missing & ~col.str.lower().isin(["nan"]).to_numpy())
         if bad_v.size:
             i = bad_v[0]

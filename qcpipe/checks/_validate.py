@@ -1,0 +1,90 @@
+"""Shared argument checks for the QC check functions (internal)."""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+
+# Longest duration accepted: durations are held as int64 nanoseconds.
+_MAX_SECONDS = 100 * 366 * 86400.0
+
+
+def as_values(values, *, func: str, name: str = "values") -> np.ndarray:
+    """`values` as a float64 array; masked elements become NaN."""
+    if isinstance(values, np.ma.MaskedArray):
+        values = np.ma.filled(values.astype(np.float64), np.nan)
+    arr = np.asarray(values)
+    if arr.dtype.kind not in "iufb":
+        raise ValueError(
+            f"{func}: {name} has dtype {arr.dtype}; expected a numeric array "
+            "(use NaN for missing values)"
+        )
+    return arr.astype(np.float64, copy=False)
+
+
+def as_1d(arr: np.ndarray, *, func: str, name: str) -> np.ndarray:
+    if arr.ndim != 1:
+        raise ValueError(
+            f"{func}: {name} must be one-dimensional; found shape {arr.shape}"
+        )
+    return arr
+
+
+def same_shape(a: np.ndarray, b: np.ndarray, *, func: str, names: tuple[str, str]):
+    if a.shape != b.shape:
+        raise ValueError(
+            f"{func}: {names[0]} and {names[1]} must have the same shape; "
+            f"found {a.shape} and {b.shape}"
+        )
+
+
+def real_number(value, *, func: str, name: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise ValueError(
+            f"{func}: {name} = {value!r}; expected a real number"
+        )
+    value = float(value)
+    if math.isnan(value):
+        raise ValueError(f"{func}: {name} = nan; expected a number")
+    return value
+
+
+def positive(value, *, func: str, name: str, allow_zero: bool = False) -> float:
+    value = real_number(value, func=func, name=name)
+    if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
+        bound = ">= 0" if allow_zero else "> 0"
+        raise ValueError(f"{func}: {name} = {value!r}; must be a finite number {bound}")
+    return value
+
+
+def count(value, *, func: str, name: str, minimum: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise ValueError(f"{func}: {name} = {value!r}; expected an integer >= {minimum}")
+    if value < minimum:
+        raise ValueError(f"{func}: {name} = {value!r}; must be an integer >= {minimum}")
+    return int(value)
+
+
+def duration_ns(seconds, *, func: str, name: str) -> int:
+    """A duration given in seconds (> 0) as whole nanoseconds (rounded)."""
+    seconds = positive(seconds, func=func, name=name)
+    if seconds > _MAX_SECONDS:
+        raise ValueError(
+            f"{func}: {name} = {seconds!r} s; must be at most {_MAX_SECONDS:.0f} s "
+            "(100 years)"
+        )
+    ns = int(round(seconds * 1e9))
+    if ns == 0:
+        raise ValueError(f"{func}: {name} = {seconds!r} s; must be at least 1 ns")
+    return ns
+
+
+def ordered(low: float, high: float, *, func: str, names: tuple[str, str], strict: bool):
+    if (low >= high) if strict else (low > high):
+        rel = "<" if strict else "<="
+        raise ValueError(
+            f"{func}: {names[0]} = {low!r} and {names[1]} = {high!r}; "
+            f"expected {names[0]} {rel} {names[1]} (are the limits swapped?)"
+        )

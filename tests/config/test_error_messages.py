@@ -1,0 +1,151 @@
+"""The messages users see for bad configuration: file, key, what is wrong, what to do."""
+
+import pytest
+
+from qcpipe.config import load_layouts, load_register, load_rules
+from qcpipe.errors import ConfigError
+
+REGISTER = """
+[register]
+name = "test"
+[[site]]
+id = "s1"
+name = "Site one"
+vertical_datum = "local datum"
+[[station]]
+id = "st1"
+site = "s1"
+name = "Station one"
+latitude = 50.0
+longitude = -4.0
+elevation_m = 1.2
+[[instrument]]
+serial = "P-1"
+kind = "immersion_probe"
+layout = "probe"
+[[deployment]]
+id = "d1"
+station = "st1"
+instrument = "P-1"
+start = 2026-09-01T10:00:00Z
+end = 2026-10-01T10:00:00Z
+clock_offset = "+01:00"
+clock_check = { logger_time = 2026-10-01T11:01:00, reference_time = 2026-10-01T10:00:00Z }
+probe_reference = { air = 400.0, water = 1200.0 }
+"""
+
+RULES = """
+[rule_set]
+name = "r1"
+[variable.temperature]
+units = "degC"
+gross_range = { sensor_min = -5, sensor_max = 45, expected_min = -2, expected_max = 35 }
+spike = { half_window = "30 min", suspect = 2.0, fail = 5.0 }
+"""
+
+LAYOUTS = """
+[layout.probe]
+file_glob = "*.wet"
+delimiter = ";"
+header_lines = 1
+time = { columns = ["stamp"], format = "%Y-%m-%d %H:%M:%S" }
+serial = { source = "header", pattern = "unit (\\\\S+)" }
+variables = { probe_reading = { column = "reading", units = "count" } }
+"""
+
+
+def load(tmp_path, loader, text, name):
+    p = tmp_path / name
+    p.write_text(text)
+    return loader(p), p
+
+
+def test_valid_files_load(tmp_path):
+    reg, _ = load(tmp_path, load_register, REGISTER, "reg.toml")
+    assert reg.deployment[0].offset_seconds == 3600
+    rules, _ = load(tmp_path, load_rules, RULES, "rules.toml")
+    assert rules.for_variable("temperature").spike.half_window == 1800.0
+    lay, _ = load(tmp_path, load_layouts, LAYOUTS, "lay.toml")
+    assert lay.layouts["probe"].reads("x.wet")
+
+
+@pytest.mark.parametrize("old, new, key, words", [
+    ('latitude = 50.0', 'latitude = 95.0', "station[0] (id 'st1').latitude", "less than or equal to 90"),
+    ('elevation_m = 1.2\n', '', "station[0] (id 'st1').elevation_m", "add this key"),
+    ('clock_offset = "+01:00"', 'clock_offset = "1h"', "deployment[0] (id 'd1').clock_offset", "'+01:00'"),
+    ('end = 2026-10-01T10:00:00Z', 'end = 2026-08-01T10:00:00Z', "deployment[0] (id 'd1')", "is not after start"),
+    ('station = "st1"', 'station = "nowhere"', "(top level)", "names station 'nowhere'"),
+    ('id = "st1"', 'id = "../etc"', "station[0] (id '../etc').id", "not a safe identifier"),
+    ('kind = "immersion_probe"', 'kind = "sonar"', "instrument[0] (id 'P-1').kind", "immersion_probe"),
+    ('start = 2026-09-01T10:00:00Z', 'start = 2026-09-01T10:00:00', "deployment[0] (id 'd1').start", "timezone"),
+], ids=["latitude", "missing-key", "offset", "inverted-window", "unknown-station", "path-escape", "kind", "naive-start"])
+def test_register_errors(tmp_path, old, new, key, words):
+    assert old in REGISTER
+    with pytest.raises(ConfigError) as info:
+        load(tmp_path, load_register, REGISTER.replace(old, new, 1), "reg.toml")
+    msg = str(info.value)
+    assert msg.startswith(f"{tmp_path / 'reg.toml'}: key {key}:"), msg
+    assert words in msg and "\n" not in msg
+
+
+@pytest.mark.parametrize("old, new, key, words", [
+    ('sensor_min = -5', 'sensor_min = 50', "variable.temperature.gross_range", "must be below sensor_max"),
+    ('half_window = "30 min"', 'half_window = 30', "variable.temperature.spike.half_window", "'30 min'"),
+    ('half_window = "30 min"', 'half_window = "-30 min"', "variable.temperature.spike.half_window", "cannot read"),
+    ('suspect = 2.0, fail = 5.0', 'suspect = 6.0, fail = 5.0', "variable.temperature.spike", "must not be below"),
+    ('units = "degC"', 'units = "degF"', "variable.temperature.units", "must be in 'degC'"),
+    ('[variable.temperature]', '[variable.temprature]', "variable.temprature", "unknown variable"),
+    ('spike = {', 'spikes = {', "variable.temperature.spikes", "remove it or check its spelling"),
+], ids=["inverted-limits", "number-duration", "negative-duration", "fail-below-suspect", "units", "typo-var",
+        "typo-check"])
+def test_rule_errors(tmp_path, old, new, key, words):
+    assert old in RULES
+    with pytest.raises(ConfigError) as info:
+        load(tmp_path, load_rules, RULES.replace(old, new, 1), "rules.toml")
+    msg = str(info.value)
+    assert msg.startswith(f"{tmp_path / 'rules.toml'}: key {key}"), msg
+    assert words in msg and "\n" not in msg
+
+
+@pytest.mark.parametrize("old, new, key, words", [
+    ('delimiter = ";"', 'delimiter = ";;"', "layout.probe.delimiter", "one character"),
+    ('units = "count"', 'units = "furlongs"', "layout.probe.variables.probe_reading.units", "unknown raw unit"),
+    ('"unit (\\\\S+)"', '"unit \\\\S+"', "layout.probe.serial.pattern", "one (group)"),
+    ('format = "%Y-%m-%d %H:%M:%S"', 'format = "YYYY-MM-DD"', "layout.probe.time.format", "strftime"),
+], ids=["delimiter", "units", "serial-group", "time-format"])
+def test_layout_errors(tmp_path, old, new, key, words):
+    assert old in LAYOUTS
+    with pytest.raises(ConfigError) as info:
+        load(tmp_path, load_layouts, LAYOUTS.replace(old, new, 1), "lay.toml")
+    msg = str(info.value)
+    assert msg.startswith(f"{tmp_path / 'lay.toml'}: key {key}"), msg
+    assert words in msg and "\n" not in msg
+
+
+def test_toml_syntax_error_names_line(tmp_path):
+    with pytest.raises(ConfigError, match=r"TOML syntax error: .*line 3"):
+        load(tmp_path, load_rules, '[rule_set]\nname = "a"\nunits = \n', "rules.toml")
+
+
+def test_missing_file(tmp_path):
+    with pytest.raises(ConfigError, match="file not found"):
+        load_rules(tmp_path / "nope.toml")
+
+
+def test_station_override_merges_and_hashes(tmp_path):
+    text = RULES + '[station.st1.variable.temperature]\nspike = { suspect = 3.0 }\n'
+    rules, _ = load(tmp_path, load_rules, text, "rules.toml")
+    assert rules.for_variable("temperature", "st1").spike.suspect == 3.0
+    assert rules.for_variable("temperature", "st1").spike.fail == 5.0          # merged key by key
+    assert rules.for_variable("temperature", "other").spike.suspect == 2.0
+    assert rules.effective_sha256("temperature", "st1") != rules.effective_sha256("temperature", "other")
+
+
+def test_rule_hash_ignores_comments_and_order(tmp_path):
+    a, _ = load(tmp_path, load_rules, RULES, "a.toml")
+    reordered = RULES.replace('spike = { half_window = "30 min", suspect = 2.0, fail = 5.0 }',
+                              '# a comment\nspike = { fail = 5.0, suspect = 2.0, half_window = "30 min" }')
+    b, _ = load(tmp_path, load_rules, reordered, "b.toml")
+    assert a.sha256 == b.sha256
+    c, _ = load(tmp_path, load_rules, RULES.replace("fail = 5.0", "fail = 5.5"), "c.toml")
+    assert c.sha256 != a.sha256

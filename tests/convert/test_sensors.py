@@ -1,0 +1,84 @@
+"""Sensor conversions against published check values and hand-worked cases."""
+
+import numpy as np
+import pytest
+
+from qcpipe.convert.sensors import (gravity_from_latitude, immersion_from_wetness,
+                                    seawater_density_from_temperature, water_level_from_pressure,
+                                    wetness_from_reading)
+from qcpipe.units import seconds_from_duration, to_stored_units
+
+
+def test_density_matches_unesco_1983_check_value():
+    # Check value of the 1980 equation of state (EOS-80): S = 40, T = 40 degC, p = 10000 dbar
+    # gives rho = 1059.82037 kg m-3 (Fofonoff and Millard, 1983, UNESCO Technical Papers in
+    # Marine Science 44; value from memory).  We compute with TEOS-10 (gsw), whose absolute
+    # salinity and ITS-90 temperature scale differ slightly from EOS-80: tolerance 0.06 kg m-3.
+    rho = seawater_density_from_temperature(40.0, salinity=40.0, sea_pressure_dbar=10000.0,
+                                            latitude=0.0, longitude=0.0)
+    assert rho == pytest.approx(1059.82037, abs=0.06)
+
+
+def test_density_near_surface_typical_value():
+    # Seawater at S = 35, 15 degC, surface: about 1025.97 kg m-3 (EOS-80 tables; from memory).
+    rho = seawater_density_from_temperature(15.0, salinity=35.0, sea_pressure_dbar=0.0, latitude=0.0,
+                                            longitude=0.0)
+    assert rho == pytest.approx(1025.97, abs=0.03)
+
+
+def test_gravity_at_45_degrees_is_normal_gravity():
+    # Normal gravity at 45 deg latitude on the GRS80 ellipsoid is 9.806199 m s-2 (Moritz 1980,
+    # Geodetic Reference System 1980; value from memory).
+    assert gravity_from_latitude(45.0) == pytest.approx(9.806199, abs=2e-5)
+
+
+def test_water_level_hydrostatic_hand_worked():
+    # 10 000 Pa above air pressure, rho 1025, g 9.81: 10000 / (1025 * 9.81) = 0.99450 m above
+    # a sensor at -1.5 m: level -0.50550 m (hand-worked).
+    h = water_level_from_pressure(np.array([101325.0 + 10000.0]), air_pressure_pa=101325.0, density=1025.0,
+                                  gravity=9.81, sensor_elevation_m=-1.5)
+    assert h[0] == pytest.approx(-0.50550, abs=1e-5)
+
+
+def test_wetness_from_reading_between_references():
+    w = wetness_from_reading(np.array([400.0, 800.0, 1200.0, 1500.0, 100.0, np.nan]), air=400.0, water=1200.0)
+    np.testing.assert_allclose(w[:5], [0.0, 0.5, 1.0, 1.0, 0.0])
+    assert np.isnan(w[5])
+
+
+def test_wetness_works_for_falling_readings():
+    # some probes read lower when wet (e.g. a frequency output); the formula holds either way
+    w = wetness_from_reading(np.array([5.0, 3.0, 1.0]), air=5.0, water=1.0)
+    np.testing.assert_allclose(w, [0.0, 0.5, 1.0])
+
+
+def test_parallel_plate_probe_classified():
+    # Trade fact (common practice, no source): a small parallel-plate probe reads about 0.06 nF in
+    # air and about 0.17 nF in water.  Readings near those values classify as dry and wet.
+    w = wetness_from_reading(np.array([0.061, 0.168, 0.059, 0.171]), air=0.06, water=0.17)
+    np.testing.assert_array_equal(immersion_from_wetness(w), [0, 1, 0, 1])
+
+
+def test_immersion_unknown_where_missing():
+    np.testing.assert_array_equal(immersion_from_wetness(np.array([np.nan, 0.49, 0.5])), [2, 0, 1])
+
+
+@pytest.mark.parametrize("text, seconds", [("45 min", 2700.0), ("2 h", 7200.0), ("1.5 d", 129600.0),
+                                           ("30 s", 30.0), ("10 minutes", 600.0)])
+def test_durations(text, seconds):
+    assert seconds_from_duration(text) == seconds
+
+
+@pytest.mark.parametrize("bad", ["45", "min", "-3 min", "3 weeks", 45])
+def test_bad_durations(bad):
+    with pytest.raises(ValueError, match="duration"):
+        seconds_from_duration(bad)
+
+
+@pytest.mark.parametrize("value, unit, expected", [
+    (32.0, "degF", 0.0), (212.0, "degF", 100.0), (273.15, "K", 0.0),      # definitions of the scales
+    (1.0, "kPa", 1000.0), (1.0, "dbar", 1.0e4), (1.0, "psi", 6894.757),  # NIST SP 811 Appendix B.8
+    (1.0, "mS cm-1", 0.1), (50000.0, "uS cm-1", 5.0),                    # 1 S m-1 = 10 mS cm-1
+])
+def test_unit_conversions(value, unit, expected):
+    assert to_stored_units(value, unit) == pytest.approx(expected, rel=1e-6)
