@@ -20,6 +20,9 @@ DEFAULTS = {
     "PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL": "WARNING",
     "PREFECT_LOGGING_LEVEL": "WARNING",
     "PREFECT_UI_ENABLED": "false",
+    # the embedded server's own services log cancelled event flushes as ERROR when the
+    # process exits; nothing is lost for qcpipe (its own catalog records every run)
+    "PREFECT_SERVER_LOGGING_LEVEL": "CRITICAL",
 }
 
 
