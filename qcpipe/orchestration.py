@@ -26,6 +26,31 @@ DEFAULTS = {
 }
 
 
+#: loggers quietened in Prefect's logging configuration: the embedded server's database
+#: pool logs cancelled roll-backs as ERROR when the process shuts the server down
+QUIET_LOGGERS = {"sqlalchemy.pool": "CRITICAL"}
+
+
+def _write_logging_config(home: Path) -> Path:
+    """Prefect's own default logging configuration plus ``QUIET_LOGGERS``, in ``home``."""
+    import importlib.util
+
+    import yaml  # a dependency of Prefect
+
+    spec = importlib.util.find_spec("prefect")   # locates the package without importing it
+    default = Path(spec.origin).parent / "logging" / "logging.yml"
+    config = yaml.safe_load(default.read_text())
+    for name, level in QUIET_LOGGERS.items():
+        config.setdefault("loggers", {})[name] = {"level": level}
+    out = home / "logging.yml"
+    text = yaml.safe_dump(config, sort_keys=False)
+    if not out.exists() or out.read_text() != text:
+        tmp = out.with_name(out.name + ".tmp")
+        tmp.write_text(text)
+        tmp.replace(out)
+    return out
+
+
 def configure_prefect(home: str | Path) -> None:
     """Point Prefect's state at ``home`` and apply the quiet defaults (call before ``import prefect``)."""
     home = Path(home)
@@ -33,3 +58,5 @@ def configure_prefect(home: str | Path) -> None:
     os.environ.setdefault("PREFECT_HOME", str(home))
     for key, value in DEFAULTS.items():
         os.environ.setdefault(key, value)
+    if "PREFECT_LOGGING_SETTINGS_PATH" not in os.environ:
+        os.environ["PREFECT_LOGGING_SETTINGS_PATH"] = str(_write_logging_config(home))

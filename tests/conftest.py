@@ -1,0 +1,83 @@
+"""Shared fixtures: one real run of the nightly flow over a copy of the demo inbox.
+
+The run uses Prefect's embedded local mode exactly as ``make demo`` does (the
+``qcpipe process`` command in a subprocess, a fresh Prefect home inside the
+temporary archive), twice: the second run must find nothing new.
+"""
+
+from __future__ import annotations
+
+import gzip
+import hashlib
+import json
+import os
+import shutil
+import subprocess
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+CF_TABLES = REPO / "tests" / "reference" / "cf"
+
+
+@dataclass
+class DemoRun:
+    root: Path
+    workspace: Path
+    archive: Path
+    inbox: Path
+    first: subprocess.CompletedProcess
+    second: subprocess.CompletedProcess
+    inbox_hashes_before: dict
+    archive_listing_after_first: dict
+    injected: dict
+
+
+def _hashes(folder: Path) -> dict:
+    return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _listing(archive: Path) -> dict:
+    return {str(p.relative_to(archive)): p.stat().st_mtime_ns for p in sorted(archive.rglob("*"))
+            if p.is_file() and ".prefect" not in p.parts and p.name != "catalog.sqlite"
+            and not p.name.startswith("catalog.sqlite")}
+
+
+def run_cli(*args, cwd=None, env=None):
+    full_env = dict(os.environ)
+    full_env.update(env or {})
+    return subprocess.run([sys.executable, "-m", "qcpipe.cli", *args], cwd=cwd, env=full_env,
+                          capture_output=True, text=True, timeout=600)
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory) -> DemoRun:
+    root = tmp_path_factory.mktemp("demo")
+    shutil.copytree(REPO / "sample_raw", root / "sample_raw")
+    shutil.copytree(REPO / "qc_rules", root / "qc_rules")
+    ws = root / "sample_raw" / "workspace.toml"
+    inbox = root / "sample_raw" / "inbox"
+    before = _hashes(inbox)
+    first = run_cli("process", "--workspace", str(ws), cwd=root)
+    archive = root / "demo_archive"
+    listing = _listing(archive) if archive.exists() else {}
+    second = run_cli("process", "--workspace", str(ws), cwd=root)
+    injected = json.loads((root / "sample_raw" / "injected.json").read_text())
+    return DemoRun(root, ws, archive, inbox, first, second, before, listing, injected)
+
+
+@pytest.fixture(scope="session")
+def cf_tables(tmp_path_factory) -> dict:
+    """The CF tables (see tests/reference/cf/SOURCES.md), unzipped for the CF checker."""
+    out = tmp_path_factory.mktemp("cf-tables")
+    paths = {}
+    for key, name in [("standard_names", "cf-standard-name-table-v83.xml"), ("area_types", "area-type-table.xml"),
+                      ("regions", "standardized-region-list.xml")]:
+        dest = out / name
+        dest.write_bytes(gzip.decompress((CF_TABLES / f"{name}.gz").read_bytes()))
+        paths[key] = dest
+    return paths

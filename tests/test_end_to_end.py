@@ -1,0 +1,285 @@
+"""End to end: the nightly flow over the demo inbox, checked against the faults the
+generator injected (sample_raw/injected.json, written by tools/make_demo_data.py) and
+against the CF checker, cf_xarray and the CF Standard Name Table."""
+
+from __future__ import annotations
+
+import hashlib
+import re
+import sqlite3
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from qcpipe.config import load_rules
+
+
+def open_nc(path) -> xr.Dataset:
+    with xr.open_dataset(path) as ds:
+        return ds.load()
+
+
+def datasets(run) -> dict[str, Path]:
+    return {p.name.split("_")[2]: p for p in sorted((run.archive / "datasets").rglob("*.nc"))}
+
+
+def dataset_of(run, deployment) -> xr.Dataset:
+    return open_nc(datasets(run)[deployment])
+
+
+def at(ds, iso):
+    t = np.datetime64(iso.rstrip("Z"), "ns")
+    i = int(np.argmin(np.abs(ds["time"].values - t)))
+    assert abs(ds["time"].values[i] - t) < np.timedelta64(1, "s"), f"no sample at {iso}"
+    return i
+
+
+# --- the run itself -------------------------------------------------------------
+
+def test_first_run_succeeds_quietly(demo_run):
+    assert demo_run.first.returncode == 0, demo_run.first.stderr
+    assert "Traceback" not in demo_run.first.stderr + demo_run.first.stdout
+    assert not re.search(r"\b(ERROR|CRITICAL)\b", demo_run.first.stderr), demo_run.first.stderr
+    assert "telemetry" not in demo_run.first.stderr.lower()
+    out = demo_run.first.stdout
+    assert "16 ingested, 2 quarantined" in out
+    assert "flags (aggregate, all variables): pass" in out
+    assert "outputs:" in out
+
+
+def test_second_run_writes_nothing_new(demo_run):
+    assert demo_run.second.returncode == 0, demo_run.second.stderr
+    assert "nothing new" in demo_run.second.stdout
+    from tests.conftest import _listing
+    assert _listing(demo_run.archive) == demo_run.archive_listing_after_first
+
+
+def test_raw_files_never_modified(demo_run):
+    from tests.conftest import _hashes
+    assert _hashes(demo_run.inbox) == demo_run.inbox_hashes_before
+
+
+def test_every_raw_file_accounted_for(demo_run):
+    con = sqlite3.connect(demo_run.archive / "catalog.sqlite")
+    rows = dict(con.execute("SELECT sha256, status FROM raw_files").fetchall())
+    con.close()
+    for name, digest in demo_run.inbox_hashes_before.items():
+        assert rows.get(digest) in ("archived", "quarantined"), name
+    assert sorted(rows.values()).count("quarantined") == 2
+
+
+def test_one_dataset_per_deployment_with_expected_samples(demo_run):
+    # counts computed by the generator from its own clock model (injected.json)
+    found = datasets(demo_run)
+    for dep in demo_run.injected["deployments"]:
+        counts = dep.get("as_declared", dep)   # the one-hour-off probe is trimmed as its register says
+        ds = open_nc(found[dep["deployment"]])
+        assert ds.sizes["time"] == counts["samples_in_window"], dep["deployment"]
+        assert ds.attrs["samples_removed_pre_deployment_total"] == counts["removed_pre_deployment"]
+        assert ds.attrs["samples_removed_post_recovery_total"] == counts["removed_post_deployment"]
+
+
+# --- injected faults ---------------------------------------------------------------
+
+def faults(run, kind):
+    return [f for f in run.injected["faults"] if f["kind"] == kind]
+
+
+def test_spikes_flagged(demo_run):
+    for f in faults(demo_run, "spike"):
+        ds = dataset_of(demo_run, f["deployment"])
+        i = at(ds, f["time_utc"])
+        assert ds["temperature_qc_spike"].values[i] == f["flag"]
+        assert ds["temperature_qc"].values[i] >= f["flag"]
+
+
+def test_stuck_value_flagged(demo_run):
+    (f,) = faults(demo_run, "stuck_value")
+    ds = dataset_of(demo_run, f["deployment"])
+    i0, i1 = at(ds, f["start_utc"]), at(ds, f["end_utc"])
+    flags = ds["temperature_qc_flat_line"].values[i0:i1 + 1]
+    assert flags.size == f["n_samples"]
+    # the check looks back: samples fail once the run is longer than fail_after (rule set)
+    rules = load_rules(demo_run.root / "qc_rules" / "kelpwhistle-cove.toml")
+    fl = rules.for_variable("temperature", f["station"]).flat_line
+    secs = (ds["time"].values[i0:i1 + 1] - ds["time"].values[i0]).astype("timedelta64[s]").astype(float)
+    np.testing.assert_array_equal(flags[secs >= fl.fail_after], 4)
+    # (the run may start one sample early when the true value before it was within tolerance)
+    assert np.all(flags[(secs >= fl.suspect_after) & (secs < fl.fail_after)] >= 3)
+    assert np.all(np.diff(flags.astype(int)) >= 0)
+    assert ds["temperature_qc"].values[i1] == 4
+
+
+def test_out_of_range_burst_fails(demo_run):
+    (f,) = faults(demo_run, "out_of_range")
+    ds = dataset_of(demo_run, f["deployment"])
+    i0, i1 = at(ds, f["start_utc"]), at(ds, f["end_utc"])
+    np.testing.assert_array_equal(ds[f"{f['variable']}_qc_gross_range"].values[i0:i1 + 1], [4] * f["n_samples"])
+    np.testing.assert_array_equal(ds[f"{f['variable']}_qc"].values[i0:i1 + 1], [4] * f["n_samples"])
+
+
+def test_gap_flagged_at_next_sample(demo_run):
+    (f,) = faults(demo_run, "gap")
+    ds = dataset_of(demo_run, f["deployment"])
+    i = at(ds, f["first_after_utc"])
+    assert ds["time"].values[i - 1] == np.datetime64(f["last_before_utc"].rstrip("Z"), "ns")
+    assert ds["wetness_qc_gap"].values[i] == 3
+    assert np.count_nonzero(ds["wetness_qc_gap"].values == 3) == 1
+
+
+def test_overlap_conflict_kept_flagged_and_reported(demo_run):
+    (f,) = faults(demo_run, "overlap_conflict")
+    ds = dataset_of(demo_run, f["deployment"])
+    i = at(ds, f["time_utc"])
+    assert ds["temperature"].values[i] == pytest.approx(f["values"][0])         # first download kept
+    assert ds["temperature_qc_download_conflict"].values[i] == 3
+    assert np.count_nonzero(ds["temperature_qc_download_conflict"].values == 3) == 1
+    assert ds["temperature_qc"].values[i] >= 3
+    csv_text = (demo_run.archive / "conflicts" / f"{f['deployment']}.csv").read_text()
+    assert f["time_utc"].rstrip("Z").replace("T", "T")[:16] in csv_text and str(f["values"][1]) in csv_text
+
+
+def test_clock_drift_removed(demo_run):
+    (f,) = faults(demo_run, "clock_drift")
+    ds = dataset_of(demo_run, f["deployment"])
+    assert ds.attrs["clock_drift_at_check_s"] == pytest.approx(f["drift_at_check_s"], abs=0.5)
+    # The logger sampled on whole 10-minute steps of its own (drifting) clock.  Map each corrected
+    # time back to the logger clock with the generator's model (injected.json "formula"):
+    #   logger = utc + offset + drift * (utc - clock_set) / (check_reference - clock_set)
+    # and it must land on that grid within 0.1 s (our correction is linear in logger time, the
+    # generator's in UTC: they differ by about drift**2 / span, 0.04 s here).
+    def secs(iso):
+        return np.datetime64(iso.rstrip("Z"), "ns").astype(np.int64) / 1e9
+    utc = ds["time"].values.astype("datetime64[ns]").astype(np.int64) / 1e9
+    t_set, t_ref = secs(f["clock_set_utc"]), secs(f["check_reference_utc"])
+    sign, hh, mm = f["clock_offset"][0], int(f["clock_offset"][1:3]), int(f["clock_offset"][4:6])
+    offset = (1 if sign == "+" else -1) * (hh * 3600 + mm * 60)
+    logger = utc + offset + f["drift_at_check_s"] * (utc - t_set) / (t_ref - t_set)
+    off = (logger + 300) % 600 - 300
+    assert np.max(np.abs(off)) < 0.1
+    # and without the correction the last samples would be minutes off
+    assert np.max(np.abs(((utc + offset + 300) % 600) - 300)) > 300 - 1
+
+
+def test_rejected_files_quarantined_with_reason(demo_run):
+    q = demo_run.archive / "quarantine"
+    reasons = {p.name: p.read_text() for p in q.glob("*.reason.txt")}
+    for kind, words in [("unknown_serial", "is not in the station register"),
+                        ("unparseable_file", "line 43")]:
+        (f,) = faults(demo_run, kind)
+        name = Path(f["file"]).name
+        match = [text for fname, text in reasons.items() if fname.endswith(name + ".reason.txt")]
+        assert match and words in match[0], (name, reasons)
+        assert match[0].splitlines()[0].startswith(name + ": ")
+        assert name in demo_run.first.stdout
+
+
+# --- standards: CF checker, cf_xarray, standard names, flag scheme --------------------
+
+def test_cf_checker_reports_no_errors(demo_run, cf_tables):
+    # CF Checker (PyPI cfchecker) against CF-1.8 and the CF tables in tests/reference/cf
+    from cfchecker.cfchecks import CFChecker
+
+    for path in datasets(demo_run).values():
+        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
+                            cfAreaTypesXML=str(cf_tables["area_types"]),
+                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
+        checker.checker(str(path))
+        totals = checker.get_total_counts()
+        assert totals["FATAL"] == 0 and totals["ERROR"] == 0, (path.name, checker.all_messages)
+        assert totals["WARN"] == 0, (path.name, checker.all_messages)
+
+
+def _standard_name_table(cf_tables):
+    root = ET.parse(cf_tables["standard_names"]).getroot()
+    return {e.get("id"): (e.findtext("canonical_units") or "").strip() for e in root.iter("entry")}
+
+
+def test_standard_names_in_table_with_compatible_units(demo_run, cf_tables):
+    # CF Standard Name Table v83; unit compatibility by UDUNITS through cfunits (ships with cfchecker)
+    from cfunits import Units
+
+    table = _standard_name_table(cf_tables)
+    seen = set()
+    for path in datasets(demo_run).values():
+        ds = open_nc(path)
+        for name, var in ds.variables.items():
+            std = var.attrs.get("standard_name")
+            if std is None:
+                continue
+            seen.add(std)
+            assert std in table, f"{path.name}:{name}: {std!r} not in the CF Standard Name Table v83"
+            units = var.attrs.get("units", var.encoding.get("units"))
+            canonical = table[std]
+            if canonical and units and std != "time":
+                assert Units(units).equivalent(Units(canonical)), (name, units, canonical)
+    assert {"gross_range_test_quality_flag", "spike_test_quality_flag", "rate_of_change_test_quality_flag",
+            "flat_line_test_quality_flag", "gap_test_quality_flag", "aggregate_quality_flag",
+            "water_surface_height_above_reference_datum"} <= seen
+
+
+def test_flags_follow_ioc_scheme_and_decode_with_cf_xarray(demo_run):
+    # IOC Manuals and Guides 54, Vol. 3 (2013) primary flags (from memory):
+    # 1 good/pass, 2 not evaluated, 3 questionable/suspect, 4 bad/fail, 9 missing.
+    import cf_xarray  # noqa: F401  (PyPI cf_xarray: reads flag_values / flag_meanings)
+
+    n_flag_vars = 0
+    for path in datasets(demo_run).values():
+        ds = open_nc(path)
+        for name in ds.data_vars:
+            if not name.endswith("_qc") and "_qc_" not in name:
+                continue
+            da = ds[name]
+            n_flag_vars += 1
+            assert da.dtype == np.int8
+            np.testing.assert_array_equal(da.attrs["flag_values"], [1, 2, 3, 4, 9])
+            assert da.attrs["flag_meanings"].split() == ["pass", "not_evaluated", "suspect", "fail", "missing"]
+            assert da.cf.is_flag_variable
+            for word, value in [("pass", 1), ("suspect", 3), ("fail", 4), ("missing", 9)]:
+                assert int((da.cf == word).sum()) == int((da.values == value).sum())
+            assert set(np.unique(da.values)) <= {1, 2, 3, 4, 9}
+    assert n_flag_vars > 20
+
+
+def test_each_data_variable_names_its_flags(demo_run):
+    for path in datasets(demo_run).values():
+        ds = open_nc(path)
+        for name in ("temperature", "ph", "wetness", "water_level", "pressure"):
+            if name in ds:
+                anc = ds[name].attrs["ancillary_variables"].split()
+                assert f"{name}_qc" in anc and all(a in ds for a in anc)
+
+
+def test_acdd_attributes_and_provenance(demo_run):
+    # ACDD-1.3 highly recommended and recommended attributes that apply
+    required = ["title", "summary", "keywords", "Conventions", "id", "naming_authority", "history", "source",
+                "processing_level", "license", "standard_name_vocabulary", "date_created", "creator_name",
+                "creator_email", "institution", "geospatial_lat_min", "geospatial_lat_max", "geospatial_lon_min",
+                "geospatial_lon_max", "time_coverage_start", "time_coverage_end", "time_coverage_duration"]
+    rules = load_rules(demo_run.root / "qc_rules" / "kelpwhistle-cove.toml")
+    inbox_by_hash = {v: k for k, v in demo_run.inbox_hashes_before.items()}
+    for path in datasets(demo_run).values():
+        ds = open_nc(path)
+        for key in required:
+            assert str(ds.attrs.get(key, "")).strip(), f"{path.name}: ACDD {key} missing"
+        assert "ACDD-1.3" in ds.attrs["Conventions"] and "CF-1.8" in ds.attrs["Conventions"]
+        assert ds.attrs["qc_rule_set_sha256"] == rules.sha256
+        for digest in ds.attrs["raw_file_sha256"].split():
+            assert digest in inbox_by_hash          # every raw file named exists, byte for byte
+        t0 = np.datetime_as_string(ds["time"].values[0], unit="s") + "Z"
+        assert ds.attrs["time_coverage_start"] == t0
+        assert ds["time"].encoding["units"] == "seconds since 1970-01-01T00:00:00Z"
+
+
+def test_archive_has_no_temporary_files(demo_run):
+    leftovers = [p for p in demo_run.archive.rglob("*.tmp") if ".prefect" not in p.parts]
+    assert leftovers == []
+
+
+def test_raw_copies_match_their_hashes(demo_run):
+    for p in (demo_run.archive / "raw").rglob("*"):
+        if p.is_file():
+            assert hashlib.sha256(p.read_bytes()).hexdigest().startswith(p.name[:12])
