@@ -9,15 +9,18 @@ TESTSTAMP := $(VENV)/.installed-test
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install --quiet --upgrade pip
+	@$(PY) -m pip install --quiet --upgrade pip > /dev/null 2>&1 || true
 
+# pip's own chatter goes to a log; it is shown only when the install fails
 $(STAMP): pyproject.toml | $(PY)
-	$(PY) -m pip install --quiet -e .
-	touch $@
+	@echo "installing qcpipe into $(VENV) (log: $(VENV)/install.log)"
+	@$(PY) -m pip install -e . > $(VENV)/install.log 2>&1 || (cat $(VENV)/install.log; exit 1)
+	@touch $@
 
 $(TESTSTAMP): pyproject.toml | $(PY)
-	$(PY) -m pip install --quiet -e '.[test]'
-	touch $@ $(STAMP)
+	@echo "installing qcpipe with its test extras into $(VENV) (log: $(VENV)/install.log)"
+	@$(PY) -m pip install -e '.[test]' > $(VENV)/install.log 2>&1 || (cat $(VENV)/install.log; exit 1)
+	@touch $@ $(STAMP)
 
 ## make demo: run the nightly flow once over the demo inbox (sample_raw/inbox)
 demo: $(STAMP)
