@@ -35,7 +35,7 @@ from ._load import check_safe_id, content_sha256, read_toml, validate
 VARIABLES_BY_KIND = {
     "immersion_probe": {"probe_reading"},
     "temperature": {"temperature"},
-    "ph": {"ph", "temperature"},
+    "ph": {"ph", "ph_mv", "temperature"},
     "conductivity": {"conductivity", "temperature"},
     "pressure": {"pressure", "temperature"},
 }

@@ -14,6 +14,7 @@ File format (TOML, our own)::
     id, station, instrument, start, end, clock_offset   # start/end UTC; clock_offset "+01:00"
     clock_check = { logger_time = 2026-10-20T11:02:10, reference_time = 2026-10-20T10:00:00Z }
     probe_reference = { air = 410.0, water = 1180.0 }   # immersion probes only
+    ph_calibration = { buffers = [[7.0, -3.2, 20.0], [4.01, 168.5, 20.0]] }  # sondes logging millivolts
     pressure = { air_pressure_hpa = 1013.25, salinity = 34.0 }  # pressure loggers only
 """
 
@@ -113,6 +114,19 @@ class ProbeReference(_Strict):
         return self
 
 
+class PhCalibration(_Strict):
+    """Buffer readings of a pH sonde that logs electrode millivolts."""
+    buffers: list[tuple[float, float, float]] = Field(
+        min_length=2, max_length=5, description="(pH of buffer, millivolts read, buffer temperature degC)")
+
+    @model_validator(mode="after")
+    def _span(self):
+        phs = [b[0] for b in self.buffers]
+        if max(phs) - min(phs) < 1.0:
+            raise ValueError("calibration buffers must span at least 1 pH unit (e.g. pH 7 and 4 or 10)")
+        return self
+
+
 class PressureSettings(_Strict):
     air_pressure_hpa: float = Field(1013.25, gt=500, lt=1100)
     salinity: float = Field(35.0, ge=0, le=42, description="practical salinity used for density")
@@ -129,6 +143,7 @@ class Deployment(_Strict):
     clock_check: ClockCheck | None = None
     probe_reference: ProbeReference | None = None
     pressure: PressureSettings | None = None
+    ph_calibration: PhCalibration | None = None
 
     @field_validator("id")
     @classmethod

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..units import to_stored_units
-from .sensors import (gravity_from_latitude, immersion_from_wetness, seawater_density_from_temperature,
+from .sensors import (gravity_from_latitude, ph_from_millivolts, immersion_from_wetness, seawater_density_from_temperature,
                       water_level_from_pressure, wetness_from_reading)
 
 STANDARD_ATMOSPHERE_PA = 101325.0  # ISO 2533 standard atmosphere at sea level
@@ -31,6 +31,21 @@ def physical_from_raw(kind: str, values: dict[str, np.ndarray], units: dict[str,
     for name in ("temperature", "ph", "conductivity"):
         if name in values:
             out[name] = to_stored_units(values[name], units[name])
+    if "ph_mv" in values:
+        cal = deployment.ph_calibration
+        if cal is None:
+            notes["ph"] = "electrode millivolts logged but no ph_calibration in the register: pH not computed"
+        else:
+            mv = to_stored_units(values["ph_mv"], units["ph_mv"]) * 1000.0
+            temp = out.get("temperature")
+            if temp is None:
+                temp = np.full_like(mv, 25.0)
+                where = "an assumed 25 degC"
+            else:
+                where = "the sonde's temperature"
+            out["ph"] = ph_from_millivolts(mv, temp, buffers=cal.buffers)
+            notes["ph"] = (f"from electrode millivolts with a {len(cal.buffers)}-point buffer calibration "
+                           f"{[list(b) for b in cal.buffers]} and the Nernst slope at {where}")
     if kind == "immersion_probe":
         reading = values["probe_reading"]
         out["probe_reading"] = reading

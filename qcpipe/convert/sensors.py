@@ -73,3 +73,59 @@ def water_level_from_pressure(pressure_pa, *, air_pressure_pa, density, gravity,
     """
     p = np.asarray(pressure_pa, dtype=np.float64)
     return sensor_elevation_m + (p - air_pressure_pa) / (np.asarray(density) * gravity)
+
+
+def nernst_slope_mv(temperature_c) -> np.ndarray:
+    """Ideal Nernst slope of a pH electrode, mV per pH unit (negative).
+
+    ``S(T) = -ln(10) R T / F`` with ``T`` in kelvin, the molar gas constant
+    ``R`` and the Faraday constant ``F`` (CODATA values from
+    ``scipy.constants``); about -59.16 mV/pH at 25 degC.
+    """
+    from scipy.constants import R, physical_constants
+
+    faraday = physical_constants["Faraday constant"][0]
+    t_k = np.asarray(temperature_c, dtype=np.float64) + 273.15
+    return -np.log(10.0) * R * t_k / faraday * 1000.0
+
+
+def ph_calibration_from_buffers(buffers) -> tuple[float, float]:
+    """Electrode offset and slope efficiency from a two- or three-point buffer calibration.
+
+    ``buffers`` is a sequence of ``(pH, millivolts, temperature_c)``.  Each
+    buffer's potential is divided by the Nernst slope at its own temperature,
+    so a straight line
+    ``E / S(T) = a + b * pH`` is fitted by least squares (exact for two
+    points).  Returns ``(e0_over_s, efficiency)`` with ``efficiency = b``
+    (1.0 for an ideal electrode; 0.95-1.02 is common practice for a good
+    one, no source) and the electrode's zero-potential pH ``-a / b``.
+    """
+    arr = np.asarray(buffers, dtype=np.float64)
+    if arr.ndim != 2 or arr.shape[1] != 3 or not 2 <= arr.shape[0] <= 5:
+        raise ValueError("buffers must be 2 to 5 rows of (pH, millivolts, temperature_c)")
+    ph, mv, t = arr.T
+    if np.ptp(ph) < 1.0:
+        raise ValueError("calibration buffers must span at least 1 pH unit")
+    y = mv / nernst_slope_mv(t)
+    b, a = np.polyfit(ph, y, 1)
+    return float(a), float(b)
+
+
+def ph_from_millivolts(millivolts, temperature_c, *, buffers) -> np.ndarray:
+    """pH from electrode potential with buffer calibration and temperature compensation.
+
+    The electrode follows ``E = S(T) * (a + b * pH)`` where ``S(T)`` is the
+    Nernst slope at the sample temperature (:func:`nernst_slope_mv`) and
+    ``a, b`` come from :func:`ph_calibration_from_buffers`, so
+
+        pH = (E / S(T) - a) / b
+
+    ``millivolts`` in mV, ``temperature_c`` in degC (the sonde's own
+    temperature; automatic temperature compensation of the slope only, the
+    buffers' own temperature dependence is taken as their nominal values).
+    Nernst equation as in IUPAC recommendations on pH measurement (Buck et al.
+    2002, Pure Appl. Chem. 74, 2169), from memory.
+    """
+    a, b = ph_calibration_from_buffers(buffers)
+    e = np.asarray(millivolts, dtype=np.float64)
+    return (e / nernst_slope_mv(temperature_c) - a) / b

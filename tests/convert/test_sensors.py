@@ -82,3 +82,58 @@ def test_bad_durations(bad):
 ])
 def test_unit_conversions(value, unit, expected):
     assert to_stored_units(value, unit) == pytest.approx(expected, rel=1e-6)
+
+
+# --- pH from electrode millivolts -------------------------------------------------
+
+from qcpipe.convert.sensors import nernst_slope_mv, ph_calibration_from_buffers, ph_from_millivolts  # noqa: E402
+
+
+def test_nernst_slope_at_25_c():
+    # 59.16 mV per pH unit at 25 degC: the textbook Nernst slope (IUPAC, Buck et al. 2002; from memory)
+    assert nernst_slope_mv(25.0) == pytest.approx(-59.16, abs=0.01)
+    # proportional to absolute temperature: 0 degC gives 59.16 * 273.15 / 298.15 = 54.20 (hand-worked)
+    assert nernst_slope_mv(0.0) == pytest.approx(-54.20, abs=0.01)
+
+
+def test_ideal_electrode_two_point_calibration():
+    # ideal electrode, zero potential at pH 7: E = -59.16 * (pH - 7) at 25 degC (hand-worked)
+    buffers = [(7.0, 0.0, 25.0), (4.0, 177.48, 25.0)]
+    a, b = ph_calibration_from_buffers(buffers)
+    assert b == pytest.approx(1.0, abs=1e-3) and -a / b == pytest.approx(7.0, abs=1e-3)
+    assert ph_from_millivolts(-59.16, 25.0, buffers=buffers) == pytest.approx(8.0, abs=1e-3)
+
+
+def test_temperature_compensation_of_slope():
+    # same electrode at 10 degC: slope 59.16 * 283.15 / 298.15 = 56.18 mV/pH, so -56.18 mV is pH 8
+    buffers = [(7.0, 0.0, 25.0), (10.0, -177.48, 25.0)]
+    assert ph_from_millivolts(-56.18, 10.0, buffers=buffers) == pytest.approx(8.0, abs=2e-3)
+
+
+def test_three_point_calibration_with_imperfect_slope():
+    # 97 % efficiency, offset +10 mV at 20 degC: E = 10 + 0.97 * S(20) * (pH - 7) (constructed by hand)
+    s20 = -59.16 * 293.15 / 298.15
+    buffers = [(ph, 10 + 0.97 * s20 * (ph - 7), 20.0) for ph in (4.0, 7.0, 10.0)]
+    _, b = ph_calibration_from_buffers(buffers)
+    assert b == pytest.approx(0.97, abs=1e-3)
+    assert ph_from_millivolts(10 + 0.97 * s20 * 1.1, 20.0, buffers=buffers) == pytest.approx(8.1, abs=2e-3)
+
+
+def test_calibration_errors():
+    with pytest.raises(ValueError, match="span at least 1 pH"):
+        ph_calibration_from_buffers([(7.0, 0.0, 25.0), (7.5, -30.0, 25.0)])
+    with pytest.raises(ValueError, match="2 to 5 rows"):
+        ph_calibration_from_buffers([(7.0, 0.0, 25.0)])
+
+
+def test_ph_sonde_logging_millivolts_is_converted():
+    from types import SimpleNamespace
+
+    from qcpipe.config.register import PhCalibration
+    from qcpipe.convert.by_kind import physical_from_raw
+
+    cal = PhCalibration(buffers=[(7.0, 0.0, 25.0), (4.0, 177.48, 25.0)])
+    dep = SimpleNamespace(ph_calibration=cal, probe_reference=None, pressure=None)
+    out = physical_from_raw("ph", {"ph_mv": np.array([-59.16, 0.0]), "temperature": np.array([25.0, 25.0])},
+                            {"ph_mv": "mV", "temperature": "degC"}, deployment=dep, station=None)
+    np.testing.assert_allclose(out.variables["ph"], [8.0, 7.0], atol=1e-3)   # hand-worked above
