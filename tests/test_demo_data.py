@@ -27,6 +27,7 @@ def _tree(folder: Path) -> dict[str, bytes]:
     files = {p.relative_to(folder).as_posix(): p.read_bytes()
              for p in sorted((folder / "inbox").rglob("*")) if p.is_file()}
     files["injected.json"] = (folder / "injected.json").read_bytes()
+    files["tide/kelpwhistle-cove.toml"] = (folder / "tide" / "kelpwhistle-cove.toml").read_bytes()
     return files
 
 

@@ -50,14 +50,21 @@ EPOCH = dt.datetime(2026, 1, 1, tzinfo=UTC)
 
 # ----------------------------------------------------------------- the tide
 MEAN_LEVEL_M = 2.0
-#: name, amplitude (m), speed (degrees per hour), phase lag (degrees) against EPOCH
+#: name, amplitude (m), speed (degrees per hour), Greenwich phase lag (degrees); the site's
+#: "published" harmonic constants, written to sample_raw/tide/ and predicted with qcpipe.tide
+#: (nodal corrections and astronomical arguments included), so the demo's truth is exactly
+#: what the site's own prediction gives
 CONSTITUENTS = [
     ("M2", 1.60, 28.9841042, 40.0),
     ("S2", 0.55, 30.0000000, 75.0),
     ("N2", 0.30, 28.4397295, 20.0),
+    ("K2", 0.15, 30.0821373, 72.0),
     ("K1", 0.08, 15.0410686, 110.0),
     ("O1", 0.07, 13.9430356, 300.0),
+    ("P1", 0.025, 14.9589314, 105.0),
+    ("M4", 0.04, 57.9682084, 130.0),
 ]
+TIDE_FILE = SAMPLE / "tide" / "kelpwhistle-cove.toml"
 RHO_SEAWATER = 1025.5   # kg m-3, roughly salinity 34 at 14 degC
 G = 9.81                # m s-2
 
@@ -129,12 +136,23 @@ def naive_text(s: float, fmt: str) -> str:
 
 
 def tide(s: np.ndarray) -> np.ndarray:
-    """Water level above chart datum (m) at UTC seconds since EPOCH."""
-    h = np.asarray(s, dtype=float) / 3600.0
-    z = np.full(h.shape, MEAN_LEVEL_M)
-    for _, a, w, g in CONSTITUENTS:
-        z += a * np.cos(np.radians(w * h - g))
-    return z
+    """Water level above chart datum (m) at UTC seconds since EPOCH (harmonic prediction)."""
+    from qcpipe.tide import predict_tide
+
+    s = np.asarray(s, dtype=float)
+    epoch = np.datetime64(EPOCH.replace(tzinfo=None), "ns")
+    times = epoch + np.rint(s * 1e9).astype("timedelta64[ns]")
+    return predict_tide(times.ravel(), {n: (a, g) for n, a, _, g in CONSTITUENTS},
+                        mean_level=MEAN_LEVEL_M).reshape(s.shape)
+
+
+def tide_constants():
+    from qcpipe.tide import HarmonicConstant, TideConstants
+
+    return TideConstants(site="Kelpwhistle Cove (fictional)", datum="Kelpwhistle Cove chart datum (fictional)",
+                         mean_level_m=MEAN_LEVEL_M,
+                         constituents=tuple(HarmonicConstant(n, a, g) for n, a, _, g in CONSTITUENTS),
+                         source="invented harmonic constants of the fictional demo site (tools/make_demo_data.py)")
 
 
 def daily_values(rng, n_days: int, lo: float, hi: float) -> np.ndarray:
@@ -585,7 +603,7 @@ def main(argv=None) -> int:
             "datum": register["site"][0]["vertical_datum"],
             "mean_level_m": MEAN_LEVEL_M,
             "epoch": iso_z(0.0),
-            "formula": "z = mean_level_m + sum(amplitude_m * cos(radians(speed_deg_per_h * hours_since_epoch - phase_deg)))",
+            "formula": "harmonic prediction with nodal corrections (qcpipe.tide.predict_tide) from sample_raw/tide/kelpwhistle-cove.toml; phase_deg are Greenwich phase lags",
             "constituents": [dict(name=n, amplitude_m=a, speed_deg_per_h=w, phase_deg=g) for n, a, w, g in CONSTITUENTS],
             "seawater_density_kg_m3": RHO_SEAWATER,
             "g_m_s2": G,
@@ -605,6 +623,10 @@ def main(argv=None) -> int:
         ],
     }
     (out / "injected.json").write_text(json.dumps(key, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    from qcpipe.tide import write_constituents
+
+    (out / "tide").mkdir(parents=True, exist_ok=True)
+    write_constituents(out / "tide" / TIDE_FILE.name, tide_constants())
     total = sum(p.stat().st_size for p in inbox.rglob("*") if p.is_file())
     print(f"wrote {sum(len(v) for v in file_records.values())} files ({total / 1e6:.2f} MB) to {inbox}")
     return 0

@@ -6,6 +6,7 @@ File format (TOML, our own)::
     name = "..."                       # free text
     [[site]]
     id = "..."; name = "..."; vertical_datum = "..."
+    tide_constituents = "tide/site.toml"   # optional harmonic constants (path relative to this file)
     [[station]]
     id, site, name, latitude, longitude, elevation_m   # sensing point above the site's datum
     [[instrument]]
@@ -55,6 +56,7 @@ class Site(_Strict):
     name: str
     vertical_datum: str = Field(description="name of the vertical datum that elevations refer to")
     description: str = ""
+    tide_constituents: str | None = Field(None, description="harmonic constants file (relative to the register)")
 
     @field_validator("id")
     @classmethod
@@ -239,6 +241,11 @@ class LoadedRegister:
 
     def __getattr__(self, name):
         return getattr(self.model, name)
+
+    def constituents_path(self, site_id: str) -> Path | None:
+        """The site's harmonic-constants file, resolved against the register's folder."""
+        site = self.model.site_by_id(site_id)
+        return None if site.tide_constituents is None else (self.path.parent / site.tide_constituents).resolve()
 
 
 def load_register(path: str | Path) -> LoadedRegister:

@@ -40,6 +40,8 @@ VARIABLE_UNITS = {
     "water_level": "m",
     "wetness": "1",
 }
+#: rule-set keys that are not per-variable (hashed with every variable's rules)
+GLOBAL_KEYS = ("immersion", "tide_timing")
 
 
 class _Strict(BaseModel):
@@ -138,6 +140,45 @@ class Gap(_Strict):
     _d = field_validator("max_gap", mode="before")(classmethod(lambda cls, v: _duration(v)))
 
 
+class ImmersionConsistency(_Strict):
+    """Immersion-probe state against the reference water level (wetness only)."""
+    margin_m: float = Field(ge=0, description="swash/wave band either side of the sensor elevation, m")
+    fail_after: float
+
+    _d = field_validator("fail_after", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+
+class ImmersionGating(_Strict):
+    """Sensors that only work under water (pH, conductivity): fail in air, suspect while settling."""
+    settle: float
+
+    _d = field_validator("settle", mode="before")(classmethod(lambda cls, v: _duration(v)))
+
+
+class TideResidual(_Strict):
+    """Observed water level against the harmonic prediction (water_level only), m."""
+    suspect: float = Field(gt=0)
+    fail: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.fail < self.suspect:
+            raise ValueError(f"fail {self.fail} must not be below suspect {self.suspect}")
+        return self
+
+
+#: checks whose parameters may be given per immersion state (when_immersed / when_emersed)
+STATE_AWARE = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line")
+
+
+class _StateRules(_Strict):
+    gross_range: GrossRange | None = None
+    climatology: list[Season] | None = None
+    spike: Spike | None = None
+    rate_of_change: RateOfChange | None = None
+    flat_line: FlatLine | None = None
+
+
 class VariableRules(_Strict):
     units: str
     gross_range: GrossRange | None = None
@@ -146,12 +187,54 @@ class VariableRules(_Strict):
     rate_of_change: RateOfChange | None = None
     flat_line: FlatLine | None = None
     gap: Gap | None = None
+    immersion_consistency: ImmersionConsistency | None = None
+    immersion_gating: ImmersionGating | None = None
+    tide_residual: TideResidual | None = None
+    when_immersed: _StateRules | None = None
+    when_emersed: _StateRules | None = None
 
     def checks(self) -> list[str]:
         return [name for name in CHECK_ORDER if getattr(self, name) is not None]
 
+    def for_state(self, state: str) -> "VariableRules":
+        """These rules with the ``when_<state>`` parameters in place of the base ones."""
+        over = getattr(self, f"when_{state}")
+        if over is None:
+            return self
+        return self.model_copy(update={k: getattr(over, k) for k in STATE_AWARE if getattr(over, k) is not None})
 
-CHECK_ORDER = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", "gap")
+    @property
+    def state_aware(self) -> bool:
+        return self.when_immersed is not None or self.when_emersed is not None
+
+
+CHECK_ORDER = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", "gap",
+               "immersion_consistency", "immersion_gating", "tide_residual")
+
+
+class ImmersionSettings(_Strict):
+    """How immersion-probe readings become a wet/dry state (rule-set table [immersion])."""
+    hysteresis_fraction: float = Field(0.1, ge=0, lt=0.5, description="half-band around the threshold as a "
+                                       "fraction of the distance between the dry and wet class means")
+    min_state: float = 600.0
+    min_bimodality: float = Field(0.75, gt=0, lt=1, description="below this separation score the probe "
+                                  "is not clearly bimodal: its immersion series is flagged suspect")
+    reference_tolerance: float = Field(0.25, gt=0, lt=1, description="allowed difference between the automatic "
+                                       "threshold and the midpoint of the air/water references, as a fraction "
+                                       "of their distance")
+
+    _d = field_validator("min_state", mode="before")(classmethod(
+        lambda cls, v: v if isinstance(v, float) else _duration(v)))
+
+
+class TideTiming(_Strict):
+    """Transition-timing and effective-elevation checks (rule-set table [tide_timing])."""
+    clock_error_threshold: float = 1200.0
+    elevation_tolerance_m: float = Field(0.15, gt=0)
+    max_offset: float = 3 * 3600.0
+
+    _d = field_validator("clock_error_threshold", "max_offset", mode="before")(classmethod(
+        lambda cls, v: v if isinstance(v, float) else _duration(v)))
 
 
 class RuleSetInfo(_Strict):
@@ -166,6 +249,8 @@ class RuleSetInfo(_Strict):
 
 class _RuleFile(_Strict):
     rule_set: RuleSetInfo
+    immersion: ImmersionSettings = ImmersionSettings()
+    tide_timing: TideTiming = TideTiming()
     variable: dict[str, dict[str, Any]] = {}
     station: dict[str, dict[str, Any]] = {}
 
@@ -183,8 +268,11 @@ def _merge(base: dict, over: dict) -> dict:
 class RuleSet:
     """A validated rule set: effective rules per (station, variable) and their hashes."""
 
-    def __init__(self, path: Path, data: dict, info: RuleSetInfo, effective: dict, raw_effective: dict):
+    def __init__(self, path: Path, data: dict, info: RuleSetInfo, effective: dict, raw_effective: dict,
+                 immersion: "ImmersionSettings | None" = None, tide_timing: "TideTiming | None" = None):
         self.path, self.data, self.info = path, data, info
+        self.immersion = immersion or ImmersionSettings()
+        self.tide_timing = tide_timing or TideTiming()
         self._effective = effective          # (station or None, variable) -> VariableRules
         self._raw = raw_effective            # same keys -> merged dict (for hashing)
         self.sha256 = content_sha256(data)
@@ -237,4 +325,11 @@ def load_rules(path: str | Path) -> RuleSet:
             merged = _merge(top.variable.get(var, {}), body)
             effective[(st, var)] = _validate_variable(path, f"station.{st}.variable.{var}", var, merged)
             raw[(st, var)] = merged
-    return RuleSet(path, data, top.rule_set, effective, raw)
+    for (st, var), rules in effective.items():
+        where = f"station.{st}.variable.{var}" if st else f"variable.{var}"
+        for key, allowed in (("immersion_consistency", {"wetness"}), ("tide_residual", {"water_level"}),
+                             ("immersion_gating", {"ph", "conductivity"})):
+            if getattr(rules, key) is not None and var not in allowed:
+                raise ConfigError(f"{path}: key {where}.{key}: applies only to {', '.join(sorted(allowed))}; "
+                                  "move it to that variable's table")
+    return RuleSet(path, data, top.rule_set, effective, raw, top.immersion, top.tide_timing)
