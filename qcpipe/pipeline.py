@@ -8,8 +8,8 @@ quarantined with a reason, and every count lands in the run summary.
 from __future__ import annotations
 
 import csv
-import datetime as dt
 import io
+import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -108,134 +108,170 @@ class DeploymentResult:
     counts: dict = field(default_factory=dict)
 
 
-def _load_store(path: Path):
+@dataclass
+class Store:
+    """The pre-QC level of one deployment: merged downloads, UTC, raw units."""
+    deployment: str
+    kind: str
+    time: np.ndarray
+    values: dict[str, np.ndarray]
+    units: dict[str, str]
+    conflict: dict[str, np.ndarray]
+    source: np.ndarray
+    sources: list[str]                 # SHA-256 of each raw file merged, in source-index order
+    names: list[str]                   # their original names
+    counts: dict[str, int]             # cumulative ingest counts (trimmed, repeats, conflicts)
+    clock_drift_s: float = 0.0
+
+
+def load_store(ctx: Context, deployment_id: str) -> Store | None:
+    """The deployment's pre-QC store from the archive, or None if it has none yet."""
+    dep = ctx.register.deployment_by_id(deployment_id)
+    path = ctx.paths.ingested(dep.station, dep.id)
     if not path.exists():
         return None
     ds = read_dataset(path)
-    sources = ds.attrs["source_sha256"].split()
-    names = ds.attrs["source_names"].split()
-    return ds, sources, names
+    units = json.loads(ds.attrs["units_json"])
+    return Store(deployment=dep.id, kind=ds.attrs["instrument_kind"], time=ds["time"].values,
+                 values={k: ds[k].values for k in units}, units=units,
+                 conflict={k: ds[f"conflict_{k}"].values.astype(bool) for k in units},
+                 source=ds["source_index"].values.astype(np.int16), sources=ds.attrs["source_sha256"].split(),
+                 names=ds.attrs["source_names"].split(), counts=json.loads(ds.attrs["counts_json"]),
+                 clock_drift_s=float(ds.attrs.get("clock_drift_s", 0.0)))
 
 
-def _store_dataset(time, values, source, conflict, sources, names, units, kind) -> xr.Dataset:
-    data = {k: ("time", v, {"units": units[k]}) for k, v in values.items()}
-    data["source_index"] = ("time", source.astype(np.int16))
-    for k, m in conflict.items():
+def _write_store(ctx: Context, station_id: str, store: Store) -> None:
+    data = {k: ("time", v, {"units": store.units[k]}) for k, v in store.values.items()}
+    data["source_index"] = ("time", store.source.astype(np.int16))
+    for k, m in store.conflict.items():
         data[f"conflict_{k}"] = ("time", m.astype(np.int8))
-    ds = xr.Dataset(data, coords={"time": time})
-    ds.attrs = {"title": "qcpipe pre-QC level: merged downloads, UTC, raw units",
-                "instrument_kind": kind, "source_sha256": " ".join(sources), "source_names": " ".join(names)}
-    return ds
-
-
-def _store_encoding(ds: xr.Dataset) -> dict:
+    ds = xr.Dataset(data, coords={"time": store.time})
+    ds.attrs = {"title": "qcpipe pre-QC level: merged downloads, UTC, raw units", "deployment_id": store.deployment,
+                "instrument_kind": store.kind, "source_sha256": " ".join(store.sources),
+                "source_names": " ".join(store.names), "units_json": json.dumps(store.units, sort_keys=True),
+                "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s}
     enc = {"time": {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}}
     for k in ds.data_vars:
         enc[k] = {"zlib": True, "complevel": 4}
-    return enc
+    write_dataset_atomic(ds, ctx.paths.ingested(station_id, store.deployment), enc)
 
 
 def _conflict_csv(path: Path, rows: list[dict], names: list[str]) -> None:
     old = path.read_text(encoding="utf-8").splitlines()[1:] if path.exists() else []
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["time_utc", "variable", "kept_value", "kept_from", "other_value", "other_from"])
-    lines = [ln for ln in old]
+    lines = list(old)
     for r in rows:
         s = io.StringIO()
         csv.writer(s, lineterminator="").writerow(
             [r["time"], r["variable"], r["kept"], names[r["kept_source"]], r["other"], names[r["other_source"]]])
         if s.getvalue() not in lines:
             lines.append(s.getvalue())
-    write_text_atomic(path, buf.getvalue() + "".join(ln + "\n" for ln in lines))
+    header = "time_utc,variable,kept_value,kept_from,other_value,other_from\n"
+    write_text_atomic(path, header + "".join(ln + "\n" for ln in lines))
 
 
-def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile]) -> DeploymentResult:
-    """Merge new files into a deployment's pre-QC store, convert, QC and write a new dataset version.
+_COUNT_KEYS = ("records", "pre_deployment", "post_recovery", "truncated_last_line")
 
-    The catalog rows (raw files archived, dataset written) are committed in one
-    transaction at the end, so a crash before it leaves the files to be found
-    again by the next run; merging is idempotent (identical records dedupe).
+
+def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile]) -> Store:
+    """Merge newly read files into the deployment's pre-QC store and write it (atomically).
+
+    Repeated identical records of overlapping downloads are dropped and
+    counted; different values for one timestamp are kept (earlier download
+    first), marked as conflicts and listed in ``conflicts/<deployment>.csv``.
+    Re-merging a file already in the store changes nothing (idempotent).
+    """
+    dep = ctx.register.deployment_by_id(deployment_id)
+    old = load_store(ctx, deployment_id)
+    kind = files[0].kind
+    units = dict(files[0].units)
+    if old is not None and old.units != units:
+        raise FileRejected(f"{files[0].raw.name}: units {units} differ from earlier files {old.units} of "
+                           f"deployment {dep.id}; check the logger layout")
+    sources = list(old.sources) if old else []
+    names = list(old.names) if old else []
+    counts = dict(old.counts) if old else {k: 0 for k in _COUNT_KEYS}
+    times = [old.time] if old else []
+    vals = {k: ([old.values[k]] if old else []) for k in units}
+    prior = {k: ([old.conflict[k]] if old else []) for k in units}
+    srcs = [old.source] if old else []
+    drift = old.clock_drift_s if old else 0.0
+    for f in sorted(files, key=lambda f: (f.time.min() if f.time.size else np.datetime64("NaT"), f.raw.name)):
+        if f.units != units:
+            raise FileRejected(f"{f.raw.name}: units {f.units} differ from earlier files {units} of deployment "
+                               f"{dep.id}; check the logger layout")
+        if f.raw.sha256 in sources:
+            continue                       # already merged (a re-run after a crash)
+        sources.append(f.raw.sha256)
+        names.append(f.raw.name)
+        times.append(f.time)
+        for k in units:
+            vals[k].append(f.values[k])
+            prior[k].append(np.zeros(f.time.size, bool))
+        srcs.append(np.full(f.time.size, len(sources) - 1, np.int16))
+        for key in _COUNT_KEYS:
+            counts[key] = counts.get(key, 0) + int(f.counts.get(key, 0))
+        drift = f.clock_correction_s
+    merged = merge_records(np.concatenate(times), {k: np.concatenate(v) for k, v in vals.items()},
+                           np.concatenate(srcs), conflict={k: np.concatenate(v) for k, v in prior.items()})
+    counts["duplicates"] = counts.get("duplicates", 0) + merged.duplicates
+    counts["conflicts"] = int(max((np.count_nonzero(m) for m in merged.conflict.values()), default=0))
+    store = Store(dep.id, kind, merged.time, merged.values, units, merged.conflict, merged.source, sources, names,
+                  counts, drift)
+    _write_store(ctx, dep.station, store)
+    if merged.conflict_rows:
+        _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names)
+    return store
+
+
+def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedFile] = (),
+                  store: Store | None = None, tide=None) -> DeploymentResult:
+    """Convert, QC and write a new dataset version of one deployment from its pre-QC store.
+
+    ``new_files`` are the raw files merged in this run: their catalog rows are
+    committed together with the dataset's, after the dataset is written.
+    ``tide`` is the station's tidal context (:mod:`qcpipe.tidal`), or None.
     """
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
     station = reg.station_by_id(dep.station)
     site = reg.site_by_id(station.site)
-    kind = files[0].kind
-    units = dict(files[0].units)
-    store_path = ctx.paths.ingested(station.id, dep.id)
-    loaded = _load_store(store_path)
-    times, vals, srcs = [], {k: [] for k in units}, []
-    prior_conflict: dict[str, list] = {k: [] for k in units}
-    if loaded is not None:
-        old, sources, names = loaded
-        times.append(old["time"].values)
-        for k in units:
-            vals[k].append(old[k].values)
-            prior_conflict[k].append(old[f"conflict_{k}"].values.astype(bool) if f"conflict_{k}" in old
-                                     else np.zeros(old.sizes["time"], bool))
-        srcs.append(old["source_index"].values)
-    else:
-        sources, names = [], []
-    counts = {"pre_deployment": 0, "post_recovery": 0, "records": 0, "truncated_last_line": 0}
-    for f in sorted(files, key=lambda f: (f.time.min() if f.time.size else np.datetime64("NaT"), f.raw.name)):
-        if f.units != units:
-            raise FileRejected(f"{f.raw.name}: units {f.units} differ from earlier files {units} of deployment {dep.id}")
-        if f.raw.sha256 in sources:
-            idx = sources.index(f.raw.sha256)
-        else:
-            sources.append(f.raw.sha256); names.append(f.raw.name)
-            idx = len(sources) - 1
-        times.append(f.time)
-        for k in units:
-            vals[k].append(f.values[k])
-            prior_conflict[k].append(np.zeros(f.time.size, bool))
-        srcs.append(np.full(f.time.size, idx, np.int16))
-        for key in counts:
-            counts[key] += int(f.counts.get(key, 0))
-    merged = merge_records(np.concatenate(times), {k: np.concatenate(v) for k, v in vals.items()},
-                           np.concatenate(srcs), conflict={k: np.concatenate(v) for k, v in prior_conflict.items()})
-    counts.update(duplicates=merged.duplicates, conflicts=merged.conflicts, reordered=merged.reordered)
-    store = _store_dataset(merged.time, merged.values, merged.source, merged.conflict, sources, names, units, kind)
-    write_dataset_atomic(store, store_path, _store_encoding(store))
-    if merged.conflict_rows:
-        _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names)
-
-    conv = physical_from_raw(kind, merged.values, units, deployment=dep, station=station)
-    conflicts = {k: merged.conflict[k] for k in conv.variables if k in merged.conflict}
-    if "probe_reading" in merged.conflict and "wetness" in conv.variables:
-        conflicts["wetness"] = merged.conflict["probe_reading"]
-    if "pressure" in merged.conflict and "water_level" in conv.variables:
-        conflicts["water_level"] = merged.conflict["pressure"]
+    store = store or load_store(ctx, deployment_id)
+    counts = store.counts
+    conv = physical_from_raw(store.kind, store.values, store.units, deployment=dep, station=station)
+    conflicts = {k: store.conflict[k] for k in conv.variables if k in store.conflict}
+    for derived, raw in (("wetness", "probe_reading"), ("water_level", "pressure"), ("ph", "ph_mv")):
+        if raw in store.conflict and derived in conv.variables:
+            conflicts[derived] = store.conflict[raw]
     qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
-    flags = apply_rule_set(qc_vars, merged.time, ctx.rules, station.id, conflicts)
+    flags = apply_rule_set(qc_vars, store.time, ctx.rules, station.id, conflicts)
 
     cat = ctx.catalog
     prev = cat.latest_dataset(dep.id)
     version = 1 if prev is None else prev["version"] + 1
     out_path = ctx.paths.dataset(station.id, dep.id, version)
     now = utc_now()
-    history = (f"{now} qcpipe {__version__}: {len(sources)} raw file(s) merged ({counts['duplicates']} repeated "
-               f"records dropped, {counts['conflicts']} conflicts kept and flagged), converted, QC with rule set "
-               f"{ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
+    history = (f"{now} qcpipe {__version__}: {len(store.sources)} raw file(s) merged ({counts.get('duplicates', 0)} "
+               f"repeated records dropped, {counts.get('conflicts', 0)} conflicts kept and flagged), converted, QC "
+               f"with rule set {ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
     if prev is not None and Path(prev["path"]).exists():
         history = f"{read_attrs(prev['path']).get('history', '')}\n{history}".strip()
     provenance = dict(rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
-                      raw_files=list(zip(names, sources)), software_version=__version__, notes=conv.notes,
+                      raw_files=list(zip(store.names, store.sources)), software_version=__version__,
+                      notes=conv.notes,
                       extra_attrs=dict(conv.attrs, clock_offset_declared=dep.clock_offset,
-                                       clock_drift_at_check_s=round(float(files[-1].clock_correction_s), 3),
-                                       samples_removed_pre_deployment_total=counts["pre_deployment"],
-                                       samples_removed_post_recovery_total=counts["post_recovery"],
-                                       download_conflicts=counts["conflicts"]))
+                                       clock_drift_at_check_s=round(float(store.clock_drift_s), 3),
+                                       samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
+                                       samples_removed_post_recovery_total=counts.get("post_recovery", 0),
+                                       download_conflicts=counts.get("conflicts", 0)))
     if prev is not None:
         provenance["previous_version"] = Path(prev["path"]).stem
-    ds, enc = build_cf_dataset(time=merged.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
+    ds, enc = build_cf_dataset(time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
                                station=station, site=site, deployment=dep, register_info=reg.info,
-                               provenance=provenance, version=version, history=history, raw_units=units)
+                               provenance=provenance, version=version, history=history, raw_units=store.units)
     write_dataset_atomic(ds, out_path, enc)
     fc = flag_counts(flags)
     with cat.transaction() as con:
-        for f in files:
+        for f in new_files:
             dest = ctx.paths.raw_copy(station.id, dep.id, f.raw.sha256, f.raw.name)
             if not dest.exists():
                 copy_atomic(f.raw.path, dest)
@@ -246,9 +282,17 @@ def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile
                            time_end=str(f.time.max()) if f.time.size else None, status="archived", reason=None)
         cat.record_dataset(con, path=str(out_path), station=station.id, deployment=dep.id, version=version,
                            rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
-                           software_version=__version__, created=now, samples=int(merged.time.size),
-                           flag_counts=fc, raw_sha256=sources)
-    return DeploymentResult(station.id, dep.id, out_path, version, int(merged.time.size), fc, counts)
+                           software_version=__version__, created=now, samples=int(store.time.size),
+                           flag_counts=fc, raw_sha256=store.sources)
+    run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
+    run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
+    return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts)
+
+
+def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile]) -> DeploymentResult:
+    """Merge new files into the deployment's store, then QC it and write a new version."""
+    store = merge_new_files(ctx, deployment_id, files)
+    return qc_deployment(ctx, deployment_id, new_files=files, store=store)
 
 
 def update_station(ctx: Context, station_id: str, files: list[IngestedFile]) -> list[DeploymentResult]:
