@@ -46,18 +46,75 @@ def conflict_flags(values, conflict_mask) -> np.ndarray:
     return out
 
 
+def state_aware_flags(values, times, rules: VariableRules, immersion) -> dict[str, np.ndarray]:
+    """Flags with the ``when_immersed`` / ``when_emersed`` parameters applied by sample state.
+
+    Each check runs once with the base parameters and once with each state's
+    parameters over the whole series (windows see both states); a sample takes
+    the flag computed with its own state's parameters (the base ones where the
+    state is unknown).
+    """
+    state = np.asarray(immersion)
+    base = flags_for_variable(values, times, rules)
+    for state_name, code in (("immersed", 1), ("emersed", 0)):
+        if getattr(rules, f"when_{state_name}") is None:
+            continue
+        alt = flags_for_variable(values, times, rules.for_state(state_name))
+        sel = state == code
+        for check, arr in alt.items():
+            base[check] = np.where(sel, arr, base.get(check, arr)).astype(np.int8)
+    return base
+
+
 def apply_rule_set(variables: dict[str, np.ndarray], times, rule_set: RuleSet, station: str,
-                   conflicts: dict[str, np.ndarray] | None = None) -> dict[str, dict[str, np.ndarray]]:
-    """Flags of every variable the rule set covers, with the aggregate under key "aggregate".
+                   conflicts: dict[str, np.ndarray] | None = None, *, immersion=None, reference_level=None,
+                   predicted_level=None, elevation_m: float | None = None, readings=None,
+                   extra: dict[str, dict[str, np.ndarray]] | None = None) -> dict[str, dict[str, np.ndarray]]:
+    """Flags of every variable, with the aggregate under key "aggregate".
+
+    Parameters
+    ----------
+    variables : {name: values} in stored units, all on ``times``
+    conflicts : {name: bool mask} records whose values differed between downloads
+    immersion : int8 immersion state of the station at ``times`` (1 immersed, 0 emersed, 2 unknown),
+        for state-aware thresholds, companion gating and the consistency check
+    reference_level : water level (m above the site datum) at ``times``, gauge or prediction
+    predicted_level : harmonic prediction at ``times`` (for the water-level residual check)
+    elevation_m : the sensing point's elevation above the datum (consistency check)
+    readings : raw probe readings (missing readings flag 9 in the consistency check)
+    extra : {name: {check: flags}} flags computed elsewhere (e.g. immersion quality)
 
     Variables the rule set does not cover get only an aggregate (2 where a
     value exists: not evaluated; 9 where missing), so every variable carries
-    a flag.
+    a flag.  A check whose inputs are absent (no immersion, no prediction) is
+    not run and does not appear.
     """
+    from .checks import tide as tide_checks
+
     flags: dict[str, dict[str, np.ndarray]] = {}
     for name, values in variables.items():
         rules = rule_set.for_variable(name, station)
-        per = flags_for_variable(values, times, rules) if rules is not None else {}
+        per: dict[str, np.ndarray] = {}
+        if rules is not None:
+            if rules.state_aware and immersion is not None:
+                per = state_aware_flags(values, times, rules, immersion)
+            else:
+                per = flags_for_variable(values, times, rules)
+            if rules.immersion_gating is not None and immersion is not None:
+                g = tide_checks.companion_gating_flags(times, immersion, settle_s=rules.immersion_gating.settle)
+                g[np.isnan(np.asarray(values, dtype=np.float64))] = checks.MISSING
+                per["immersion_gating"] = g
+            if rules.tide_residual is not None and predicted_level is not None:
+                r = rules.tide_residual
+                per["tide_residual"] = tide_checks.water_level_residual_flags(values, predicted_level,
+                                                                              suspect_m=r.suspect, fail_m=r.fail)
+            if (rules.immersion_consistency is not None and immersion is not None
+                    and reference_level is not None and elevation_m is not None):
+                c = rules.immersion_consistency
+                per["immersion_consistency"] = tide_checks.immersion_consistency_flags(
+                    times, immersion, reference_level, elevation_m=elevation_m, margin_m=c.margin_m,
+                    fail_after_s=c.fail_after, reading=readings)
+        per.update((extra or {}).get(name, {}))
         if conflicts and name in conflicts and np.any(conflicts[name]):
             per["download_conflict"] = conflict_flags(values, conflicts[name])
         per["aggregate"] = checks.aggregate_flags(values, list(per.values()))

@@ -44,6 +44,10 @@ CHECK_META = {
     "flat_line": ("flat_line_test_quality_flag", "flat line (stuck value) test"),
     "gap": ("gap_test_quality_flag", "gap test"),
     "download_conflict": ("quality_flag", "test for values that differ between overlapping downloads"),
+    "immersion_consistency": ("quality_flag", "tide consistency test (probe state against the water level)"),
+    "immersion_quality": ("quality_flag", "immersion probe health test (bimodality, clock, elevation)"),
+    "immersion_gating": ("quality_flag", "immersion gating test (sensor in air or settling after immersion)"),
+    "tide_residual": ("quality_flag", "tide residual test (observed minus predicted water level)"),
     "aggregate": ("aggregate_quality_flag", "aggregate of all tests"),
 }
 

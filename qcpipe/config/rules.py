@@ -217,7 +217,7 @@ class ImmersionSettings(_Strict):
     hysteresis_fraction: float = Field(0.1, ge=0, lt=0.5, description="half-band around the threshold as a "
                                        "fraction of the distance between the dry and wet class means")
     min_state: float = 600.0
-    min_bimodality: float = Field(0.75, gt=0, lt=1, description="below this separation score the probe "
+    min_bimodality: float = Field(0.9, gt=0, lt=1, description="below this separation score the probe "
                                   "is not clearly bimodal: its immersion series is flagged suspect")
     reference_tolerance: float = Field(0.25, gt=0, lt=1, description="allowed difference between the automatic "
                                        "threshold and the midpoint of the air/water references, as a fraction "

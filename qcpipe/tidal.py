@@ -1,0 +1,182 @@
+"""The tidal context of a station: reference water level, immersion state, timing verdicts.
+
+Stage functions between the tide science (``qcpipe.tide``) and the pipeline:
+they take arrays and configuration objects, and read nothing but what they
+are given (the pipeline loads the site's constants and the gauge series).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .checks import FAIL, MISSING, PASS, SUSPECT
+from .config.rules import ImmersionSettings, TideTiming
+from .convert.sensors import wetness_from_reading
+from .tide import immersion as imm
+from .tide import timing
+from .tide.harmonics import TideConstants, predict_tide
+
+_NS = 1_000_000_000
+
+
+@dataclass
+class SiteTide:
+    """What is known of the water level at a site: harmonic constants and/or an observed gauge."""
+    site_id: str
+    constants: TideConstants | None = None
+    gauge_time: np.ndarray | None = None          # datetime64[ns]
+    gauge_level: np.ndarray | None = None         # m above the site datum, failed/missing removed
+    gauge_name: str = ""
+    max_gauge_gap_s: float = 1800.0
+
+    def predicted(self, times) -> np.ndarray | None:
+        """Harmonic prediction at ``times`` (m above the site datum), or None without constants."""
+        if self.constants is None:
+            return None
+        return predict_tide(np.asarray(times, dtype="datetime64[ns]"), self.constants,
+                            mean_level=self.constants.mean_level_m)
+
+    def observed(self, times) -> np.ndarray | None:
+        """The gauge's level interpolated to ``times``; NaN outside its record and across its gaps."""
+        if self.gauge_time is None or self.gauge_time.size < 2:
+            return None
+        t = np.asarray(times, dtype="datetime64[ns]").astype(np.int64)
+        gt = self.gauge_time.astype("datetime64[ns]").astype(np.int64)
+        out = np.interp(t, gt, self.gauge_level, left=np.nan, right=np.nan)
+        i = np.clip(np.searchsorted(gt, t), 1, gt.size - 1)
+        out[(gt[i] - gt[i - 1]) > self.max_gauge_gap_s * _NS] = np.nan
+        return out
+
+    def reference(self, times) -> tuple[np.ndarray | None, str]:
+        """Reference level at ``times``: the observed gauge where it has data, else the prediction."""
+        obs, pred = self.observed(times), self.predicted(times)
+        if obs is None and pred is None:
+            return None, "none"
+        if obs is None:
+            return pred, "harmonic prediction"
+        if pred is None:
+            return obs, f"observed gauge {self.gauge_name}"
+        return np.where(np.isnan(obs), pred, obs), f"observed gauge {self.gauge_name} (prediction where it has no data)"
+
+
+@dataclass
+class ProbeAnalysis:
+    """The immersion state of a probe deployment and what was found on the way."""
+    state: np.ndarray                      # int8: 1 immersed, 0 emersed, 2 unknown
+    wetness: np.ndarray                    # 0..1
+    quality: np.ndarray                    # int8 flags of the immersion_quality check
+    threshold: float
+    threshold_source: str
+    bimodality: float
+    notices: list[str] = field(default_factory=list)
+    attrs: dict = field(default_factory=dict)
+    clock: timing.ClockVerdict | None = None
+    elevation: timing.ElevationCheck | None = None
+
+
+def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settings: ImmersionSettings,
+                  timing_rules: TideTiming, tide: SiteTide | None, label: str) -> ProbeAnalysis:
+    """Wet/dry state of an immersion probe from its own readings, checked against the tide.
+
+    1. Threshold by Otsu's method on the deployment's readings; the class means
+       give the dry and wet levels, the separation score (Otsu's eta) says whether
+       the readings are clearly bimodal.  Readings rise when wet (capacitance grows
+       with permittivity) unless the register's air/water references say otherwise.
+    2. Below ``settings.min_bimodality`` the probe is suspect (fouled, buried,
+       failed): the reference midpoint is used as the threshold if references were
+       taken, and every sample's ``immersion_quality`` flag is suspect.
+    3. With references, the automatic threshold is cross-checked against their
+       midpoint (``reference_tolerance`` of their distance).
+    4. Hysteresis of ``hysteresis_fraction`` of the class distance and a minimum
+       state duration stop chattering.
+    5. With a harmonic prediction: transition timing gives a clock verdict; the
+       level at the (clock-corrected) transitions gives the effective elevation,
+       compared with the surveyed one.  A suspected clock error or an elevation
+       beyond tolerance makes the immersion series suspect.
+    """
+    t = np.asarray(times, dtype="datetime64[ns]")
+    r = np.asarray(reading, dtype=np.float64)
+    ok = np.isfinite(r)
+    notices: list[str] = []
+    attrs: dict = {}
+    quality = np.where(ok, PASS, MISSING).astype(np.int8)
+    if np.count_nonzero(ok) < 10 or np.ptp(r[ok]) == 0:
+        notices.append(f"{label}: too few distinct probe readings to tell wet from dry; immersion unknown")
+        state = np.full(r.size, 2, np.int8)
+        quality[ok] = SUSPECT
+        return ProbeAnalysis(state, np.full(r.size, np.nan), quality, float("nan"), "none", 0.0, notices, attrs)
+    thr = imm.otsu_threshold(r)
+    score = imm.bimodality_score(r, thr)
+    lo, hi = float(np.mean(r[ok & (r < thr)])), float(np.mean(r[ok & (r >= thr)]))
+    wet_is_high = probe_reference.water > probe_reference.air if probe_reference else True
+    dry_level, wet_level = (lo, hi) if wet_is_high else (hi, lo)
+    source = "Otsu threshold of the deployment's readings"
+    if score < settings.min_bimodality:
+        quality[ok] = SUSPECT
+        notices.append(f"{label}: probe readings not clearly bimodal (separation {score:.2f} < "
+                       f"{settings.min_bimodality:.2f}): fouled, buried or failed probe? immersion flagged suspect")
+        if probe_reference is not None:
+            thr = 0.5 * (probe_reference.air + probe_reference.water)
+            source = "midpoint of the register's air/water references (readings not bimodal)"
+    elif probe_reference is not None:
+        mid = 0.5 * (probe_reference.air + probe_reference.water)
+        dist = abs(probe_reference.water - probe_reference.air)
+        attrs["immersion_reference_midpoint"] = mid
+        if abs(thr - mid) > settings.reference_tolerance * dist:
+            notices.append(f"{label}: automatic wet/dry threshold {thr:.4g} differs from the air/water reference "
+                           f"midpoint {mid:.4g} by more than {settings.reference_tolerance:.0%} of their distance; "
+                           "check the references or the probe")
+    state = imm.classify_immersion(t, r, threshold=thr, hysteresis=settings.hysteresis_fraction * abs(hi - lo),
+                                   min_state_s=settings.min_state, wet_is_high=wet_is_high)
+    if probe_reference is not None:
+        wetness = wetness_from_reading(r, air=probe_reference.air, water=probe_reference.water)
+    else:
+        wetness = wetness_from_reading(r, air=dry_level, water=wet_level)
+    attrs.update(immersion_threshold=float(thr), immersion_threshold_source=source,
+                 immersion_bimodality=round(float(score), 4),
+                 immersion_hysteresis=float(settings.hysteresis_fraction * abs(hi - lo)),
+                 immersion_min_state_s=float(settings.min_state))
+    result = ProbeAnalysis(state, wetness, quality, float(thr), source, float(score), notices, attrs)
+    pred = tide.predicted(t) if tide is not None else None
+    if pred is not None and np.count_nonzero(state != 2) > 10:
+        verdict = timing.clock_error_estimate(t, state, t, pred, elevation_m=elevation_m,
+                                              max_lag_s=timing_rules.max_offset,
+                                              threshold_s=timing_rules.clock_error_threshold)
+        result.clock = verdict
+        attrs.update(clock_transition_offset_s=_round(verdict.offset_s), clock_offset_spread_s=_round(verdict.spread_s),
+                     clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected),
+                     clock_verdict=verdict.message)
+        if verdict.suspected:
+            notices.append(f"{label}: {verdict.message}")
+            quality[ok] = np.maximum(quality[ok], SUSPECT)
+        shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
+        obs = timing.observed_transitions(t, state)
+        ref_level, ref_source = tide.reference(t)
+        eff = timing.effective_elevation(obs.flooding - shift, obs.draining - shift, t, ref_level)
+        if eff.n >= 4:
+            check = timing.elevation_check(eff, elevation_m, tolerance_m=timing_rules.elevation_tolerance_m)
+            result.elevation = check
+            attrs.update(effective_elevation_m=_round(eff.median_m, 3), effective_elevation_spread_m=_round(eff.spread_m, 3),
+                         effective_elevation_reference=ref_source)
+            if check.suspect:
+                notices.append(f"{label}: {check.message}")
+                quality[ok] = np.maximum(quality[ok], SUSPECT)
+    return result
+
+
+def _round(x, nd=1):
+    return None if x is None or not np.isfinite(x) else round(float(x), nd)
+
+
+def state_from_level(times, level, *, elevation_m: float, margin_m: float) -> np.ndarray:
+    """Immersion state from a water level alone: 1 above elevation + margin, 0 below elevation - margin, else 2."""
+    lv = np.asarray(level, dtype=np.float64)
+    out = np.full(lv.shape, 2, np.int8)
+    out[lv > elevation_m + margin_m] = 1
+    out[lv < elevation_m - margin_m] = 0
+    return out
+
+
+__all__ = ["SiteTide", "ProbeAnalysis", "analyse_probe", "state_from_level", "FAIL"]
