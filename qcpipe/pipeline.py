@@ -29,6 +29,10 @@ from .convert.by_kind import physical_from_raw
 from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file
 from .ingest.timebase import merge_records
 from .qc import apply_rule_set, flag_counts
+from .archive import products as derived
+from .tidal import SiteTide, analyse_probe, state_from_level
+from .tide.harmonics import load_constituents
+from .tide.immersion import immersion_at
 
 
 @dataclass
@@ -106,6 +110,8 @@ class DeploymentResult:
     samples: int
     flag_counts: dict
     counts: dict = field(default_factory=dict)
+    notices: list = field(default_factory=list)    # what needs a person's attention
+    products: list = field(default_factory=list)   # derived files written beside the dataset
 
 
 @dataclass
@@ -239,11 +245,38 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     counts = store.counts
     conv = physical_from_raw(store.kind, store.values, store.units, deployment=dep, station=station)
     conflicts = {k: store.conflict[k] for k in conv.variables if k in store.conflict}
-    for derived, raw in (("wetness", "probe_reading"), ("water_level", "pressure"), ("ph", "ph_mv")):
-        if raw in store.conflict and derived in conv.variables:
-            conflicts[derived] = store.conflict[raw]
+    for var_out, raw in (("wetness", "probe_reading"), ("water_level", "pressure"), ("ph", "ph_mv")):
+        if raw in store.conflict and var_out in conv.variables:
+            conflicts[var_out] = store.conflict[raw]
     qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
-    flags = apply_rule_set(qc_vars, store.time, ctx.rules, station.id, conflicts)
+    label = f"{station.id}/{dep.id}"
+    notices: list[str] = []
+    tide_attrs: dict = {}
+    qc_args: dict = {}
+    if store.kind == "immersion_probe":
+        analysis = analyse_probe(store.time, store.values["probe_reading"], probe_reference=dep.probe_reference,
+                                 elevation_m=station.elevation_m, settings=ctx.rules.immersion,
+                                 timing_rules=ctx.rules.tide_timing, tide=tide, label=label)
+        conv.variables["wetness"] = qc_vars["wetness"] = analysis.wetness
+        conv.immersion = analysis.state
+        notices += analysis.notices
+        tide_attrs.update(analysis.attrs)
+        ref_level, ref_source = tide.reference(store.time) if tide is not None else (None, "none")
+        tide_attrs["immersion_reference_level"] = ref_source
+        qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
+                       readings=store.values["probe_reading"], extra={"wetness": {"immersion_quality": analysis.quality}})
+    else:
+        state, source = station_immersion(ctx, station, store.time, tide)
+        conv.immersion = state
+        tide_attrs["immersion_source"] = source
+        qc_args = dict(immersion=state)
+        if store.kind == "pressure" and tide is not None:
+            qc_args["predicted_level"] = tide.predicted(store.time)
+    flags = apply_rule_set(qc_vars, store.time, ctx.rules, station.id, conflicts, **qc_args)
+    if "tide_residual" in flags.get("water_level", {}):
+        res = qc_args["predicted_level"]
+        tide_attrs["tide_residual_rms_m"] = round(float(np.sqrt(np.nanmean((conv.variables["water_level"] - res) ** 2))), 4)
+    conv.attrs.update(tide_attrs)
 
     cat = ctx.catalog
     prev = cat.latest_dataset(dep.id)
@@ -268,7 +301,15 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     ds, enc = build_cf_dataset(time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
                                station=station, site=site, deployment=dep, register_info=reg.info,
                                provenance=provenance, version=version, history=history, raw_units=store.units)
+    if qc_args.get("predicted_level") is not None:
+        ds["water_level_predicted"] = xr.DataArray(qc_args["predicted_level"], dims=("time",), attrs=dict(
+            long_name=f"harmonic prediction of the water level above {site.vertical_datum}", units="m",
+            coordinates=ds["water_level"].attrs["coordinates"], comment="for the tide residual check; "
+            "not for navigation or safety planning"))
+        enc["water_level_predicted"] = dict(enc["water_level"])
     write_dataset_atomic(ds, out_path, enc)
+    products = derived.write_products(ctx, station, site, dep, store.kind, store.time, conv, flags, version,
+                                      tide=tide) if store.kind in ("pressure",) else []
     fc = flag_counts(flags)
     with cat.transaction() as con:
         for f in new_files:
@@ -286,21 +327,130 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                            flag_counts=fc, raw_sha256=store.sources)
     run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
     run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
-    return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts)
+    return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
+                            notices, products)
 
 
-def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile]) -> DeploymentResult:
+def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile], tide=None) -> DeploymentResult:
     """Merge new files into the deployment's store, then QC it and write a new version."""
     store = merge_new_files(ctx, deployment_id, files)
-    return qc_deployment(ctx, deployment_id, new_files=files, store=store)
+    return qc_deployment(ctx, deployment_id, new_files=files, store=store, tide=tide)
 
 
-def update_station(ctx: Context, station_id: str, files: list[IngestedFile]) -> list[DeploymentResult]:
-    """Update every deployment of one station that received new files."""
-    by_dep: dict[str, list[IngestedFile]] = {}
+# --- the tide around a station ----------------------------------------------------
+
+def _kind(ctx: Context, deployment_id: str) -> str:
+    dep = ctx.register.deployment_by_id(deployment_id)
+    return ctx.register.instrument_by_serial(dep.instrument).kind
+
+
+def site_tide(ctx: Context, site_id: str) -> SiteTide:
+    """The site's harmonic constants (if the register names a file) and its observed gauge.
+
+    The gauge is every pressure-logger deployment at the site, from its latest
+    dataset version, without samples whose aggregate flag is fail or missing.
+    """
+    path = ctx.register.constituents_path(site_id)
+    constants = load_constituents(path) if path is not None else None
+    times, levels, names = [], [], []
+    for dep in ctx.register.deployment:
+        if ctx.register.station_by_id(dep.station).site != site_id or _kind(ctx, dep.id) != "pressure":
+            continue
+        latest = ctx.catalog.latest_dataset(dep.id)
+        if latest is None or not Path(latest["path"]).exists():
+            continue
+        ds = read_dataset(latest["path"])
+        keep = ~np.isin(ds["water_level_qc"].values, (4, 9))
+        times.append(ds["time"].values[keep])
+        levels.append(ds["water_level"].values[keep])
+        names.append(dep.id)
+    if not times:
+        return SiteTide(site_id, constants)
+    t = np.concatenate(times)
+    order = np.argsort(t, kind="stable")
+    return SiteTide(site_id, constants, t[order], np.concatenate(levels)[order], ", ".join(names))
+
+
+def station_immersion(ctx: Context, station, times, tide: SiteTide | None) -> tuple[np.ndarray, str]:
+    """Immersion state of a station at ``times``: from its immersion probe, else from the water level.
+
+    The probe's latest dataset gives the state of the nearest preceding probe
+    sample (within three probe sampling intervals, at most 1 h); without a
+    probe the reference level against the station elevation decides (unknown
+    within 0.1 m of it); without either, unknown.
+    """
+    t = np.asarray(times, dtype="datetime64[ns]")
+    for dep in ctx.register.deployment:
+        if dep.station != station.id or _kind(ctx, dep.id) != "immersion_probe":
+            continue
+        latest = ctx.catalog.latest_dataset(dep.id)
+        if latest is None or not Path(latest["path"]).exists():
+            continue
+        ds = read_dataset(latest["path"])
+        pt = ds["time"].values
+        if pt.size < 2 or t.size == 0 or pt[-1] < t[0] or pt[0] > t[-1]:
+            continue
+        step = float(np.median(np.diff(pt)).astype("timedelta64[ns]").astype(np.int64)) / 1e9
+        state = immersion_at(t, pt, ds["immersion"].values, max_gap_s=min(3 * step, 3600.0))
+        return state, f"immersion probe deployment {dep.id} (version {latest['version']})"
+    if tide is not None:
+        level, source = tide.reference(t)
+        if level is not None:
+            return (state_from_level(t, level, elevation_m=station.elevation_m, margin_m=0.1),
+                    f"water level ({source}) against the station elevation, unknown within 0.1 m")
+    return np.full(t.size, 2, np.int8), "unknown (no immersion probe and no water level at this site)"
+
+
+# --- planning a run ----------------------------------------------------------------
+
+@dataclass
+class QcPlan:
+    """Deployments to (re-)QC, in dependency order: gauges first, then stations (probe first)."""
+    gauges: list[str]
+    stations: dict[str, list[str]]
+    sites: list[str]
+
+
+def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
+    """Which deployments a run must QC, given those that received new data.
+
+    A new gauge record changes the reference level of every probe at its site;
+    a new probe record changes the immersion state of every instrument at its
+    station: their datasets are re-QC'd from the stored pre-QC level.
+    """
+    reg = ctx.register
+    have_store = {d.id for d in reg.deployment if ctx.paths.ingested(d.station, d.id).exists()} | set(touched)
+    todo = set(touched)
+    site_of = {d.id: reg.station_by_id(d.station).site for d in reg.deployment}
+    new_gauge_sites = {site_of[d] for d in touched if _kind(ctx, d) == "pressure"}
+    todo |= {d for d in have_store if _kind(ctx, d) == "immersion_probe" and site_of[d] in new_gauge_sites}
+    new_probe_stations = {reg.deployment_by_id(d).station for d in todo if _kind(ctx, d) == "immersion_probe"}
+    todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}
+    order = {"pressure": 0, "immersion_probe": 1}
+    gauges = sorted(d for d in todo if _kind(ctx, d) == "pressure")
+    stations: dict[str, list[str]] = {}
+    for d in sorted(todo - set(gauges), key=lambda d: (order.get(_kind(ctx, d), 2), d)):
+        stations.setdefault(reg.deployment_by_id(d).station, []).append(d)
+    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}))
+
+
+def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_files: dict[str, list],
+               tide: SiteTide | None) -> list[DeploymentResult]:
+    """QC the given deployments of one station in order (probe first), then its exposure products."""
+    results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide) for d in deployment_ids]
+    station = ctx.register.station_by_id(station_id)
+    written = derived.write_exposure_products(ctx, station)
+    if written and results:
+        results[0].products.extend(written)
+    return results
+
+
+def group_by_deployment(files: list[IngestedFile]) -> dict[str, list[IngestedFile]]:
+    """Ingested files grouped by deployment id (sorted)."""
+    out: dict[str, list[IngestedFile]] = {}
     for f in files:
-        by_dep.setdefault(f.deployment, []).append(f)
-    return [update_deployment(ctx, dep_id, fs) for dep_id, fs in sorted(by_dep.items())]
+        out.setdefault(f.deployment, []).append(f)
+    return dict(sorted(out.items()))
 
 
 # --- summary ---------------------------------------------------------------------
@@ -360,13 +510,12 @@ class RunSummary:
             parts = "; ".join(f"{var}: " + " ".join(f"{FLAG_WORDS[k][:4]}={v}" for k, v in sorted(per.items()))
                               for var, per in r.flag_counts.items())
             out.append(f"  {r.station}/{r.deployment} v{r.version:03d}: {parts}")
-        out.append(f"outputs: {self.archive}/datasets (catalog {self.archive}/catalog.sqlite)")
+        notices = [n for r in self.results for n in r.notices]
+        if notices:
+            out.append("needs attention:")
+            out += [f"  {n}" for n in notices]
+        n_products = sum(len(r.products) for r in self.results)
+        out.append(f"outputs: {self.archive}/datasets, {n_products} derived products in {self.archive}/derived "
+                   f"(catalog {self.archive}/catalog.sqlite)")
         return out
 
-
-def group_by_station(files: list[IngestedFile]) -> dict[str, list[IngestedFile]]:
-    """Ingested files grouped by station id (sorted)."""
-    out: dict[str, list[IngestedFile]] = {}
-    for f in files:
-        out.setdefault(f.station, []).append(f)
-    return dict(sorted(out.items()))

@@ -35,7 +35,7 @@ class SiteTide:
         """Harmonic prediction at ``times`` (m above the site datum), or None without constants."""
         if self.constants is None:
             return None
-        return predict_tide(np.asarray(times, dtype="datetime64[ns]"), self.constants,
+        return predict_tide(np.asarray(times, dtype="datetime64[ns]"), self.constants.constituents,
                             mean_level=self.constants.mean_level_m)
 
     def observed(self, times) -> np.ndarray | None:

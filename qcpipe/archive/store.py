@@ -8,6 +8,7 @@ Layout of an archive folder (all names are ours)::
     ingested/<station>/<deployment>.nc               pre-QC level: merged, UTC, raw units
     datasets/<station>/qcpipe_<station>_<deployment>_v<NNN>.nc   QC'd, CF/ACDD, versioned
     conflicts/<deployment>.csv                       records whose values disagree between downloads
+    derived/<station>/...                            tide events, datums, fitted constants, exposure
     .prefect/                                        the orchestrator's own state
 """
 
@@ -66,6 +67,10 @@ class ArchivePaths:
         check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")
         return self._inside(self.root / "datasets" / station /
                             f"qcpipe_{station}_{deployment}_v{version:03d}.nc")
+
+    def derived(self, station: str, name: str) -> Path:
+        check_safe_id(station, "station id")
+        return self._inside(self.root / "derived" / station / safe_file_name(name))
 
     def conflicts(self, deployment: str) -> Path:
         check_safe_id(deployment, "deployment id")

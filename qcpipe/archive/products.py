@@ -1,0 +1,227 @@
+"""Derived products written beside the QC'd data, as CF NetCDF and as CSV.
+
+* per water-level gauge deployment: high and low waters (observed and
+  predicted, with the tidal-day class HHW/LHW/HLW/LLW), tidal datums of the
+  record, and the harmonic constants fitted to it (a constants file the
+  predictor reads);
+* per station with an immersion probe: emersion periods and a daily exposure
+  summary (with aerial temperature from the station's temperature logger).
+
+Files: ``derived/<station>/qcpipe_<station>_<deployment>_v<NNN>_<product>.{nc,csv}``
+(named after the dataset they were computed from).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .. import __version__
+from ..tide.analysis import fit_constituents
+from ..tide.datums import tidal_datums
+from ..tide.events import high_low_waters, tidal_day_classes
+from ..tide.immersion import daily_exposure, exposure_periods
+from .catalog import utc_now
+from .ncio import read_dataset, write_dataset_atomic
+from .store import write_text_atomic
+
+EVENT_CLASSES = ("HHW", "LHW", "HLW", "LLW")
+
+
+def _csv(rows: list[list], header: list[str]) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(header)
+    w.writerows(rows)
+    return buf.getvalue()
+
+
+def _iso(t) -> str:
+    return np.datetime_as_string(np.datetime64(t, "s"), unit="s") + "Z"
+
+
+def _seconds(t) -> np.ndarray:
+    return np.asarray(t, dtype="datetime64[ns]").astype(np.int64) / 1e9
+
+
+def _time_attrs(long_name: str) -> dict:
+    return dict(long_name=long_name, units="seconds since 1970-01-01T00:00:00Z", calendar="standard")
+
+
+def _global(station, site, title: str, summary: str, source_id: str) -> dict:
+    return {"Conventions": "CF-1.8, ACDD-1.3", "title": title, "summary": summary,
+            "source": f"derived by qcpipe {__version__} from dataset {source_id}", "station_id": station.id,
+            "site_name": site.name, "vertical_datum": site.vertical_datum, "date_created": utc_now(),
+            "geospatial_lat_min": station.latitude, "geospatial_lat_max": station.latitude,
+            "geospatial_lon_min": station.longitude, "geospatial_lon_max": station.longitude,
+            "comment": "tide values are for data quality control only, not for navigation or safety planning"}
+
+
+def _base(ctx, station, dep, version) -> Path:
+    name = f"qcpipe_{station.id}_{dep.id}_v{version:03d}"
+    return ctx.paths.derived(station.id, name)
+
+
+def tide_event_table(times, heights, source: str):
+    """High/low waters and their tidal-day classes as rows (time, kind, class, height, source)."""
+    ev = high_low_waters(times, heights)
+    classes = tidal_day_classes(ev) if len(ev) else np.array([], dtype=str)
+    return ev, classes, [[_iso(t), k, c, round(float(h), 4), source] for t, k, c, h in
+                         zip(ev.time, ev.kind, classes, ev.height)]
+
+
+def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *, tide=None) -> list[Path]:
+    """Products of a water-level gauge deployment: events, datums, fitted constants."""
+    if kind != "pressure" or "water_level" not in conv.variables:
+        return []
+    wl = np.asarray(conv.variables["water_level"], dtype=np.float64)
+    good = ~np.isin(flags["water_level"]["aggregate"], (4, 9)) & np.isfinite(wl)
+    t, h = np.asarray(time)[good], wl[good]
+    if t.size < 100:
+        return []
+    base = _base(ctx, station, dep, version)
+    written: list[Path] = []
+    ev, cls, rows = tide_event_table(t, h, "observed")
+    n_obs = len(rows)
+    if tide is not None and tide.constants is not None:
+        grid = np.arange(t[0], t[-1], np.timedelta64(6, "m"))
+        _, _, prow = tide_event_table(grid, tide.predicted(grid), "predicted")
+        rows += prow
+    rows.sort(key=lambda r: (r[0], r[4]))
+    written.append(write_text_atomic(base.with_name(base.name + "_tide_events.csv"),
+                                     _csv(rows, ["time_utc", "kind", "tidal_day_class", "height_m", "source"])))
+    n = len(rows)
+    ds = xr.Dataset({
+        "event_time": ("event", np.array([_seconds(np.datetime64(r[0].rstrip("Z"))) for r in rows], np.float64).ravel(),
+                       _time_attrs("time of the high or low water (UTC)")),
+        "event_height": ("event", np.array([r[3] for r in rows], np.float64),
+                         dict(long_name=f"height of the high or low water above {site.vertical_datum}", units="m")),
+        "event_kind": ("event", np.array([1 if r[1] == "high" else 0 for r in rows], np.int8),
+                       dict(long_name="kind of event", flag_values=np.array([0, 1], np.int8),
+                            flag_meanings="low_water high_water")),
+        "event_class": ("event", np.array([EVENT_CLASSES.index(r[2]) + 1 if r[2] in EVENT_CLASSES else 0
+                                           for r in rows], np.int8),
+                        dict(long_name="class of the event within its tidal day (24.8412 h)",
+                             flag_values=np.array([0, 1, 2, 3, 4], np.int8),
+                             flag_meanings="unclassified higher_high_water lower_high_water higher_low_water "
+                                           "lower_low_water")),
+        "event_source": ("event", np.array([1 if r[4] == "observed" else 0 for r in rows], np.int8),
+                         dict(long_name="source of the event", flag_values=np.array([0, 1], np.int8),
+                              flag_meanings="harmonic_prediction observed_water_level")),
+    })
+    attrs = _global(station, site, f"High and low waters at {station.id}, deployment {dep.id}",
+                    f"{n_obs} observed and {n - n_obs} predicted high and low waters", base.name)
+    try:
+        dat = tidal_datums(t, h, ev)
+    except ValueError as err:
+        dat = None
+        attrs["tidal_datums"] = f"not computed: {err}"
+    if dat is not None:
+        keys = ("mhhw", "mhw", "dtl", "mtl", "msl", "mlw", "mllw", "mn", "gt")
+        for k in keys:
+            attrs[f"datum_{k}_m"] = round(float(getattr(dat, k)), 4)
+        attrs["datum_record_length_days"] = round(dat.record_length_days, 2)
+        attrs["datum_note"] = dat.note
+        written.append(write_text_atomic(
+            base.with_name(base.name + "_datums.csv"),
+            _csv([[k.upper(), round(float(getattr(dat, k)), 4)] for k in keys] +
+                 [["record_length_days", round(dat.record_length_days, 2)], ["note", dat.note]],
+                 ["datum", f"metres above {site.vertical_datum}"])))
+    ds.attrs = attrs
+    enc = {v: {"_FillValue": None} for v in ds.data_vars}
+    written.append(write_dataset_atomic(ds, base.with_name(base.name + "_tide_events.nc"), enc))
+    record_days = (t[-1] - t[0]).astype("timedelta64[s]").astype(float) / 86400
+    if record_days >= 15:
+        fit = fit_constituents(t, h, latitude=station.latitude)
+        written.append(fit.to_toml(base.with_name(base.name + "_constituents.toml"), site=site.name,
+                                   datum=site.vertical_datum,
+                                   source=f"least-squares fit by qcpipe {__version__} to {base.name} "
+                                          f"({record_days:.1f} days)"))
+    return written
+
+
+def write_exposure_products(ctx, station) -> list[Path]:
+    """Emersion periods and daily exposure of a station from its probe's and temperature logger's latest datasets."""
+    from ..pipeline import _kind
+
+    site = ctx.register.site_by_id(station.site)
+    probe = temp = None
+    for dep in ctx.register.deployment:
+        if dep.station != station.id:
+            continue
+        latest = ctx.catalog.latest_dataset(dep.id)
+        if latest is None or not Path(latest["path"]).exists():
+            continue
+        kind = _kind(ctx, dep.id)
+        if kind == "immersion_probe" and probe is None:
+            probe = (dep, latest)
+        elif kind == "temperature" and temp is None:
+            temp = (dep, latest)
+    if probe is None:
+        return []
+    dep, latest = probe
+    pds = read_dataset(latest["path"])
+    tt = tv = None
+    if temp is not None:
+        tds = read_dataset(temp[1]["path"])
+        ok = ~np.isin(tds["temperature_qc"].values, (4, 9))
+        tt, tv = tds["time"].values[ok], tds["temperature"].values[ok]
+    periods = exposure_periods(pds["time"].values, pds["immersion"].values, tt, tv)
+    daily = daily_exposure(periods, temperature_times=tt, temperature=tv)
+    base = _base(ctx, station, dep, latest["version"])
+    src = Path(latest["path"]).stem + (f" and {Path(temp[1]['path']).stem}" if temp else "")
+    written = [
+        write_text_atomic(base.with_name(base.name + "_emersion_periods.csv"), _csv(
+            [[_iso(s), _iso(e), round(float(d) / 3600, 4), _r(mx), _r(mn), int(c)] for s, e, d, mx, mn, c in
+             zip(periods.start, periods.end, periods.duration_s, periods.max_temperature,
+                 periods.mean_temperature, periods.complete)],
+            ["start_utc", "end_utc", "duration_h", "max_temperature_degC", "mean_temperature_degC",
+             "both_ends_observed"])),
+        write_text_atomic(base.with_name(base.name + "_daily_exposure.csv"), _csv(
+            [[str(d), round(float(h), 4), int(n), round(float(lg), 4), _r(mx)] for d, h, n, lg, mx in
+             zip(daily.day, daily.emersed_h, daily.n_emersions, daily.longest_emersion_h, daily.max_temperature)],
+            ["day_utc", "hours_emersed", "emersions", "longest_emersion_h", "max_aerial_temperature_degC"])),
+    ]
+    fill = {"_FillValue": np.float64(np.nan)}
+    pds_out = xr.Dataset({
+        "start_time": ("period", _seconds(periods.start), _time_attrs("first emersed sample (UTC)")),
+        "end_time": ("period", _seconds(periods.end), _time_attrs("first immersed sample after the emersion (UTC)")),
+        "duration": ("period", periods.duration_s.astype(np.float64), dict(long_name="emersion duration", units="s")),
+        "max_temperature": ("period", periods.max_temperature, dict(long_name="highest temperature while emersed",
+                                                                    units="degC")),
+        "mean_temperature": ("period", periods.mean_temperature, dict(long_name="mean temperature while emersed",
+                                                                      units="degC")),
+        "both_ends_observed": ("period", periods.complete.astype(np.int8), dict(
+            long_name="the draining and the flooding that bound the period were both observed",
+            flag_values=np.array([0, 1], np.int8), flag_meanings="no yes")),
+    }, attrs=_global(station, site, f"Emersion periods at station {station.id}",
+                     f"{len(periods)} emersion periods of the sensing point", src))
+    written.append(write_dataset_atomic(pds_out, base.with_name(base.name + "_emersion_periods.nc"),
+                                        {"start_time": {"_FillValue": None}, "end_time": {"_FillValue": None},
+                                         "duration": fill, "max_temperature": fill, "mean_temperature": fill,
+                                         "both_ends_observed": {"_FillValue": None}}))
+    day_s = _seconds(daily.day.astype("datetime64[ns]"))
+    dds = xr.Dataset({
+        "day": ("day", day_s, _time_attrs("start of the UTC day") | {"standard_name": "time", "axis": "T"}),
+        "hours_emersed": ("day", daily.emersed_h, dict(long_name="time emersed within the day", units="h")),
+        "emersions": ("day", daily.n_emersions.astype(np.int32), dict(long_name="emersions with a part in the day",
+                                                                       units="1")),
+        "longest_emersion": ("day", daily.longest_emersion_h, dict(long_name="longest emersion within the day",
+                                                                   units="h")),
+        "max_aerial_temperature": ("day", daily.max_temperature, dict(
+            long_name="highest temperature while emersed within the day", units="degC")),
+    }, attrs=_global(station, site, f"Daily exposure at station {station.id}",
+                     "hours emersed, number of emersions, longest emersion and highest aerial temperature per UTC day",
+                     src))
+    written.append(write_dataset_atomic(dds, base.with_name(base.name + "_daily_exposure.nc"),
+                                        {"day": {"_FillValue": None}, "hours_emersed": fill, "emersions": {"_FillValue": None},
+                                         "longest_emersion": fill, "max_aerial_temperature": fill}))
+    return written
+
+
+def _r(x, nd=3):
+    return "" if not np.isfinite(x) else round(float(x), nd)
