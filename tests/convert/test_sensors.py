@@ -137,3 +137,23 @@ def test_ph_sonde_logging_millivolts_is_converted():
     out = physical_from_raw("ph", {"ph_mv": np.array([-59.16, 0.0]), "temperature": np.array([25.0, 25.0])},
                             {"ph_mv": "mV", "temperature": "degC"}, deployment=dep, station=None)
     np.testing.assert_allclose(out.variables["ph"], [8.0, 7.0], atol=1e-3)   # hand-worked above
+
+
+def test_density_matches_teos10_check_values():
+    # TEOS-10 GSW check values (gsw_cv_v3_0.npz, shipped with PyPI gsw in gsw/tests): the check
+    # cast's practical salinity, in-situ temperature and pressure give the published rho through
+    # SA_from_SP and CT_from_t.  The toolbox's own tolerance for rho is of order 1e-10 kg m-3.
+    from pathlib import Path
+
+    import gsw
+
+    cv_file = Path(gsw.__file__).parent / "tests" / "gsw_cv_v3_0.npz"
+    if not cv_file.exists():
+        pytest.skip("this gsw build does not ship its check-value file")
+    cv = np.load(cv_file)
+    rho = seawater_density_from_temperature(cv["t_chck_cast"], salinity=cv["SP_chck_cast"],
+                                            sea_pressure_dbar=cv["p_chck_cast"], latitude=cv["lat_chck_cast"],
+                                            longitude=cv["long_chck_cast"])
+    ok = np.isfinite(cv["rho"])
+    assert ok.sum() >= 90         # three casts, 98 valid levels in v3.0
+    np.testing.assert_allclose(rho[ok], cv["rho"][ok], rtol=0, atol=1e-8)
