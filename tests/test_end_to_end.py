@@ -283,3 +283,109 @@ def test_raw_copies_match_their_hashes(demo_run):
     for p in (demo_run.archive / "raw").rglob("*"):
         if p.is_file():
             assert hashlib.sha256(p.read_bytes()).hexdigest().startswith(p.name[:12])
+
+
+# --- the tide: immersion, clock error, gating, products (issue 3) ------------------------
+
+def test_every_dataset_carries_immersion_state(demo_run):
+    for path in datasets(demo_run).values():
+        ds = open_nc(path)
+        assert "immersion" in ds and ds["immersion"].dtype == np.int8
+        assert ds["immersion"].attrs["flag_meanings"] == "emersed immersed unknown"
+        assert set(np.unique(ds["immersion"].values)) <= {0, 1, 2}
+
+
+def test_one_hour_clock_error_reported(demo_run):
+    (f,) = faults(demo_run, "clock_one_hour_off")
+    ds = dataset_of(demo_run, f["deployment"])
+    # the generator wrote this probe's times in UTC+1 while the register declares +00:00:
+    # its transitions come 60 min late (injected.json correction_s = -3600)
+    assert ds.attrs["clock_error_suspected"] == 1
+    assert ds.attrs["clock_transition_offset_s"] == pytest.approx(-f["correction_s"], abs=300)
+    assert ds.attrs["clock_xcorr_lag_s"] == pytest.approx(-f["correction_s"], abs=300)
+    assert "daylight-saving" in ds.attrs["clock_verdict"]
+    assert np.all(ds["wetness_qc_immersion_quality"].values[np.isfinite(ds["wetness"].values)] == f["flag"])
+    assert f"{f['station']}/{f['deployment']}: probe clock about +60 min off" in demo_run.first.stdout
+    # and no other probe is reported
+    for dep in demo_run.injected["deployments"]:
+        if dep["deployment"] != f["deployment"] and dep["deployment"].endswith(("probe-2026-09",)):
+            other = dataset_of(demo_run, dep["deployment"])
+            assert other.attrs["clock_error_suspected"] == 0
+            assert abs(other.attrs["clock_transition_offset_s"]) < 300
+
+
+def test_probe_immersion_agrees_with_the_tide_where_the_clock_is_right(demo_run):
+    # the shore probes with correct clocks agree with the site's water level outside the swash band
+    for dep in ("kc-high-probe-2026-09", "kc-low-probe-2026-09"):
+        ds = dataset_of(demo_run, dep)
+        fl = ds["wetness_qc_immersion_consistency"].values
+        evaluated = np.isin(fl, (1, 3, 4))
+        assert evaluated.mean() > 0.8
+        assert np.count_nonzero(fl == 4) == 0
+        assert np.count_nonzero(fl == 3) / evaluated.sum() < 0.01
+        assert abs(ds.attrs["effective_elevation_m"] - ds["sensor_height"].item()) < 0.15
+
+
+def test_ph_fails_while_emersed(demo_run):
+    ds = dataset_of(demo_run, "kc-low-ph-2026-09")
+    gate = ds["ph_qc_immersion_gating"].values
+    emersed = ds["immersion"].values == 0
+    assert emersed.sum() > 100
+    np.testing.assert_array_equal(gate[emersed], 4)
+    assert np.all(ds["ph_qc"].values[emersed] == 4)
+    assert "immersion probe deployment kc-low-probe-2026-09" in ds.attrs["immersion_source"]
+
+
+def test_water_level_checked_against_prediction(demo_run):
+    ds = dataset_of(demo_run, "kc-pier-level-2026-09")
+    res = ds["water_level"].values - ds["water_level_predicted"].values
+    # the demo's gauge differs from the prediction only by weather (about +-15 hPa, i.e. +-0.15 m)
+    assert np.nanstd(res) < 0.15
+    assert np.all(ds["water_level_qc_tide_residual"].values[np.abs(res) <= 0.3] == 1)
+
+
+def derived_files(run, pattern):
+    return sorted((run.archive / "derived").rglob(pattern))
+
+
+def test_derived_products_written_and_cf_clean(demo_run, cf_tables):
+    from cfchecker.cfchecks import CFChecker
+
+    names = [p.name for p in derived_files(demo_run, "*")]
+    for product in ("_tide_events.nc", "_tide_events.csv", "_datums.csv", "_constituents.toml",
+                    "_emersion_periods.nc", "_emersion_periods.csv", "_daily_exposure.nc", "_daily_exposure.csv"):
+        assert any(n.endswith(product) for n in names), product
+    for path in derived_files(demo_run, "*.nc"):
+        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
+                            cfAreaTypesXML=str(cf_tables["area_types"]),
+                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
+        checker.checker(str(path))
+        totals = checker.get_total_counts()
+        assert totals["FATAL"] == 0 and totals["ERROR"] == 0 and totals["WARN"] == 0, (path.name, checker.all_messages)
+
+
+def test_gauge_fit_recovers_the_site_constants(demo_run):
+    # the demo's truth is the site's own constants file; a fit to 6 weeks of the gauge (with
+    # weather) must give M2 back within 2 cm and 2 degrees
+    from qcpipe.tide import load_constituents
+
+    truth = {c.name: c for c in load_constituents(demo_run.root / "sample_raw" / "tide" /
+                                                  "kelpwhistle-cove.toml").constituents}
+    (fitted_file,) = derived_files(demo_run, "*_constituents.toml")
+    fit = {c.name: c for c in load_constituents(fitted_file).constituents}
+    assert fit["M2"].amplitude_m == pytest.approx(truth["M2"].amplitude_m, abs=0.02)
+    assert abs((fit["M2"].phase_deg - truth["M2"].phase_deg + 180) % 360 - 180) < 2.0
+
+
+def test_daily_exposure_consistent_with_emersion_periods(demo_run):
+    import csv
+
+    (daily_csv,) = [p for p in derived_files(demo_run, "*_daily_exposure.csv") if "kc-high" in p.name]
+    (periods_csv,) = [p for p in derived_files(demo_run, "*_emersion_periods.csv") if "kc-high" in p.name]
+    daily = list(csv.DictReader(daily_csv.open()))
+    periods = list(csv.DictReader(periods_csv.open()))
+    total_daily = sum(float(r["hours_emersed"]) for r in daily)
+    total_periods = sum(float(r["duration_h"]) for r in periods)
+    assert total_daily == pytest.approx(total_periods, rel=1e-6)
+    # the high-shore station is emersed for most of each day (2.4 m above datum, mean level 2.0 m)
+    assert 10 < total_daily / len(daily) < 20
