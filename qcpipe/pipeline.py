@@ -22,11 +22,13 @@ from .archive.cf import build_cf_dataset
 from .archive.ncio import read_attrs, read_dataset, write_dataset_atomic
 from .archive.store import ArchivePaths, copy_atomic, write_text_atomic
 from .config import load_workspace
+from .config.annotations import Annotations
 from .config.layouts import LoadedLayouts
 from .config.register import LoadedRegister
 from .config.rules import RuleSet
 from .convert.by_kind import physical_from_raw
-from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file
+from . import lineage
+from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file, sha256_of_file
 from .ingest.timebase import merge_records
 from .qc import apply_rule_set, flag_counts
 from .archive import products as derived
@@ -44,6 +46,8 @@ class Context:
     layouts: LoadedLayouts
     rules: RuleSet
     paths: ArchivePaths
+    annotations: Annotations = field(default_factory=lambda: Annotations([], None))
+    keep_versions: int = 0
 
     @property
     def catalog(self) -> Catalog:
@@ -54,7 +58,8 @@ def load_context(workspace_path: str | Path) -> Context:
     """Load and cross-check the workspace's configuration (ConfigError on any problem)."""
     ws = load_workspace(workspace_path)
     register, layouts, rules = ws.load()
-    return Context(ws.path, ws.inbox, register, layouts, rules, ArchivePaths(ws.archive))
+    return Context(ws.path, ws.inbox, register, layouts, rules, ArchivePaths(ws.archive),
+                   ws.load_annotations(register), ws.keep_versions)
 
 
 # --- discover -----------------------------------------------------------------
@@ -128,6 +133,7 @@ class Store:
     names: list[str]                   # their original names
     counts: dict[str, int]             # cumulative ingest counts (trimmed, repeats, conflicts)
     clock_drift_s: float = 0.0
+    ingest_key: str = ""               # lineage.ingest_key when the store was built
 
 
 def load_store(ctx: Context, deployment_id: str) -> Store | None:
@@ -143,7 +149,7 @@ def load_store(ctx: Context, deployment_id: str) -> Store | None:
                  conflict={k: ds[f"conflict_{k}"].values.astype(bool) for k in units},
                  source=ds["source_index"].values.astype(np.int16), sources=ds.attrs["source_sha256"].split(),
                  names=ds.attrs["source_names"].split(), counts=json.loads(ds.attrs["counts_json"]),
-                 clock_drift_s=float(ds.attrs.get("clock_drift_s", 0.0)))
+                 clock_drift_s=float(ds.attrs.get("clock_drift_s", 0.0)), ingest_key=ds.attrs.get("ingest_key", ""))
 
 
 def _write_store(ctx: Context, station_id: str, store: Store) -> None:
@@ -155,7 +161,8 @@ def _write_store(ctx: Context, station_id: str, store: Store) -> None:
     ds.attrs = {"title": "qcpipe pre-QC level: merged downloads, UTC, raw units", "deployment_id": store.deployment,
                 "instrument_kind": store.kind, "source_sha256": " ".join(store.sources),
                 "source_names": " ".join(store.names), "units_json": json.dumps(store.units, sort_keys=True),
-                "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s}
+                "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s,
+                "ingest_key": store.ingest_key}
     enc = {"time": {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}}
     for k in ds.data_vars:
         enc[k] = {"zlib": True, "complevel": 4}
@@ -178,7 +185,7 @@ def _conflict_csv(path: Path, rows: list[dict], names: list[str]) -> None:
 _COUNT_KEYS = ("records", "pre_deployment", "post_recovery", "truncated_last_line")
 
 
-def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile]) -> Store:
+def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile], *, fresh: bool = False) -> Store:
     """Merge newly read files into the deployment's pre-QC store and write it (atomically).
 
     Repeated identical records of overlapping downloads are dropped and
@@ -187,7 +194,7 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile])
     Re-merging a file already in the store changes nothing (idempotent).
     """
     dep = ctx.register.deployment_by_id(deployment_id)
-    old = load_store(ctx, deployment_id)
+    old = None if fresh else load_store(ctx, deployment_id)
     kind = files[0].kind
     units = dict(files[0].units)
     if old is not None and old.units != units:
@@ -222,7 +229,7 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile])
     counts["duplicates"] = counts.get("duplicates", 0) + merged.duplicates
     counts["conflicts"] = int(max((np.count_nonzero(m) for m in merged.conflict.values()), default=0))
     store = Store(dep.id, kind, merged.time, merged.values, units, merged.conflict, merged.source, sources, names,
-                  counts, drift)
+                  counts, drift, lineage.ingest_key(ctx, dep.id))
     _write_store(ctx, dep.station, store)
     if merged.conflict_rows:
         _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names)
@@ -272,7 +279,17 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         qc_args = dict(immersion=state)
         if store.kind == "pressure" and tide is not None:
             qc_args["predicted_level"] = tide.predicted(store.time)
-    flags = apply_rule_set(qc_vars, store.time, ctx.rules, station.id, conflicts, **qc_args)
+    notes_manual: dict[str, list[str]] = {}
+    manual: dict[str, list] = {}
+    for a in ctx.annotations.for_station(station.id):
+        for var in qc_vars:
+            if a.applies_to(station.id, var):
+                d = a.as_dict()
+                manual.setdefault(var, []).append((np.datetime64(d["start"].rstrip("Z"), "ns"),
+                                                   np.datetime64(d["end"].rstrip("Z"), "ns"), a.flag))
+                notes_manual.setdefault(var, []).append(
+                    f"{d['start']} to {d['end']}: flag {a.flag} by {a.reviewer} on {d['date']}: {a.reason}")
+    flags = apply_rule_set(qc_vars, store.time, ctx.rules, station.id, conflicts, manual=manual, **qc_args)
     if "tide_residual" in flags.get("water_level", {}):
         res = qc_args["predicted_level"]
         tide_attrs["tide_residual_rms_m"] = round(float(np.sqrt(np.nanmean((conv.variables["water_level"] - res) ** 2))), 4)
@@ -296,11 +313,19 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                                        samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
                                        samples_removed_post_recovery_total=counts.get("post_recovery", 0),
                                        download_conflicts=counts.get("conflicts", 0)))
+    inputs = lineage.qc_inputs(ctx, dep.id)
+    key = lineage.qc_key(ctx, dep.id)
+    provenance["extra_attrs"]["qc_inputs_sha256"] = key
     if prev is not None:
         provenance["previous_version"] = Path(prev["path"]).stem
     ds, enc = build_cf_dataset(time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
                                station=station, site=site, deployment=dep, register_info=reg.info,
                                provenance=provenance, version=version, history=history, raw_units=store.units)
+    for var, lines in notes_manual.items():
+        ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
+    first = cat.dataset_versions(dep.id)
+    if first and Path(first[0]["path"]).exists():
+        ds.attrs["date_created"] = read_attrs(first[0]["path"]).get("date_created", ds.attrs["date_created"])
     if qc_args.get("predicted_level") is not None:
         ds["water_level_predicted"] = xr.DataArray(qc_args["predicted_level"], dims=("time",), attrs=dict(
             long_name=f"harmonic prediction of the water level above {site.vertical_datum}", units="m",
@@ -324,17 +349,104 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         cat.record_dataset(con, path=str(out_path), station=station.id, deployment=dep.id, version=version,
                            rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
                            software_version=__version__, created=now, samples=int(store.time.size),
-                           flag_counts=fc, raw_sha256=store.sources)
+                           flag_counts=fc, raw_sha256=store.sources, qc_key=key, qc_inputs=inputs,
+                           sha256=sha256_of_file(out_path))
+    prune_versions(ctx, dep.id)
     run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
     run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
                             notices, products)
 
 
+def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
+    """Delete dataset versions beyond the workspace's ``keep_versions`` (0 keeps all); the catalog keeps their rows."""
+    if ctx.keep_versions <= 0:
+        return []
+    cat = ctx.catalog
+    versions = [v for v in cat.dataset_versions(deployment_id) if not v["pruned"]]
+    removed = []
+    for v in versions[:-ctx.keep_versions]:
+        p = Path(v["path"])
+        if p.exists():
+            p.unlink()
+        cat.mark_pruned(v["path"])
+        removed.append(p)
+    return removed
+
+
 def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile], tide=None) -> DeploymentResult:
     """Merge new files into the deployment's store, then QC it and write a new version."""
     store = merge_new_files(ctx, deployment_id, files)
     return qc_deployment(ctx, deployment_id, new_files=files, store=store, tide=tide)
+
+
+# --- what changed since the last run ---------------------------------------------
+
+def changed_ingest(ctx: Context) -> list[str]:
+    """Deployments whose pre-QC store was built with another register entry or layout."""
+    out = []
+    for d in ctx.register.deployment:
+        path = ctx.paths.ingested(d.station, d.id)
+        if path.exists() and read_attrs(path).get("ingest_key", "") != lineage.ingest_key(ctx, d.id):
+            out.append(d.id)
+    return out
+
+
+def rebuild_store(ctx: Context, deployment_id: str) -> tuple[Store | None, list[str]]:
+    """Read a deployment's archived raw copies again (after a register or layout change).
+
+    Each copy is read under its original name (layouts match on it) from a
+    temporary folder; the archive's copies are only read.  Returns the new store
+    and notices (files that now fall outside the deployment).
+    """
+    import shutil
+    import tempfile
+
+    rows = ctx.catalog.raw_files(deployment=deployment_id, status="archived")
+    notices, files = [], []
+    with tempfile.TemporaryDirectory(prefix="qcpipe-reread-") as tmp:
+        for r in rows:
+            src = Path(r["archived_path"])
+            dest = Path(tmp) / r["sha256"][:12] / r["original_name"]
+            dest.parent.mkdir()
+            shutil.copyfile(src, dest)
+            outcome = read_one_file(RawFile(dest, r["sha256"], r["size"]), ctx.register, ctx.layouts)
+            if outcome.ingested is None or outcome.ingested.deployment != deployment_id:
+                notices.append(f"{deployment_id}: archived file {r['original_name']} no longer reads into this "
+                               f"deployment ({outcome.reason or 'matches ' + outcome.ingested.deployment})")
+                continue
+            files.append(outcome.ingested)
+        if not files:
+            return None, notices
+        return merge_new_files(ctx, deployment_id, files, fresh=True), notices
+
+
+def check_deployment_ids(ctx: Context, ids) -> None:
+    """ConfigError naming the first id that is not a deployment with stored data."""
+    from .errors import ConfigError
+
+    known = {d.id: d for d in ctx.register.deployment}
+    for d in ids:
+        if d not in known:
+            raise ConfigError(f"{ctx.register.path}: no deployment {d!r}; see 'qcpipe holdings' for the ids")
+        if not ctx.paths.ingested(known[d].station, d).exists():
+            raise ConfigError(f"deployment {d!r} has no stored data in {ctx.paths.root}; run 'qcpipe process' first")
+
+
+def stale_deployments(ctx: Context) -> dict[str, list[str]]:
+    """Deployments with a store whose latest dataset came from other inputs: {id: differences}."""
+    out: dict[str, list[str]] = {}
+    cat = ctx.catalog
+    for d in ctx.register.deployment:
+        if not ctx.paths.ingested(d.station, d.id).exists():
+            continue
+        latest = cat.latest_dataset(d.id)
+        if latest is None:
+            out[d.id] = ["no dataset yet"]
+        elif latest.get("qc_key") != lineage.qc_key(ctx, d.id):
+            out[d.id] = lineage.differences(latest.get("qc_inputs") or {}, lineage.qc_inputs(ctx, d.id)) or \
+                ["inputs changed"]
+    return out
 
 
 # --- the tide around a station ----------------------------------------------------
@@ -468,9 +580,12 @@ class RunSummary:
     results: list = field(default_factory=list)          # DeploymentResult
     archive: str = ""
 
+    reruns: dict = field(default_factory=dict)          # deployment -> why it was re-QC'd
+    notices: list = field(default_factory=list)          # run-level notices (not of one deployment)
+
     @property
     def nothing_new(self) -> bool:
-        return self.ingested == 0 and not self.quarantined
+        return self.ingested == 0 and not self.quarantined and not self.results
 
     def totals(self) -> dict[str, int]:
         tot = {k: 0 for k in FLAG_WORDS}
@@ -495,6 +610,8 @@ class RunSummary:
             out.append(f"  quarantined {name}: {reason}")
         for rep in self.repeated_in_inbox:
             out.append(f"  skipped repeated copy {rep}")
+        for dep, why in self.reruns.items():
+            out.append(f"  re-QC {dep}: " + "; ".join(why[:4]) + (f"; and {len(why) - 4} more" if len(why) > 4 else ""))
         samples = sum(r.samples for r in self.results)
         dup = sum(r.counts.get("duplicates", 0) for r in self.results)
         con = sum(r.counts.get("conflicts", 0) for r in self.results)
@@ -510,7 +627,7 @@ class RunSummary:
             parts = "; ".join(f"{var}: " + " ".join(f"{FLAG_WORDS[k][:4]}={v}" for k, v in sorted(per.items()))
                               for var, per in r.flag_counts.items())
             out.append(f"  {r.station}/{r.deployment} v{r.version:03d}: {parts}")
-        notices = [n for r in self.results for n in r.notices]
+        notices = list(self.notices) + [n for r in self.results for n in r.notices]
         if notices:
             out.append("needs attention:")
             out += [f"  {n}" for n in notices]

@@ -46,6 +46,28 @@ def conflict_flags(values, conflict_mask) -> np.ndarray:
     return out
 
 
+def manual_flags(values, times, ranges) -> np.ndarray:
+    """A reviewer's flags: ``flag`` inside each (start, end, flag) range (inclusive), 2 elsewhere, 9 where missing.
+
+    Later ranges win where ranges overlap (annotations apply in file order).
+    """
+    t = np.asarray(times, dtype="datetime64[ns]")
+    out = np.full(t.size, checks.NOT_EVALUATED, np.int8)
+    for start, end, flag in ranges:
+        out[(t >= np.datetime64(start, "ns")) & (t <= np.datetime64(end, "ns"))] = flag
+    out[np.isnan(np.asarray(values, dtype=np.float64))] = checks.MISSING
+    return out
+
+
+def with_manual_precedence(aggregate, manual) -> np.ndarray:
+    """The aggregate with a reviewer's flag (1, 3 or 4) in place of the automated result."""
+    agg = np.asarray(aggregate).copy()
+    m = np.asarray(manual)
+    use = np.isin(m, (checks.PASS, checks.SUSPECT, checks.FAIL))
+    agg[use] = m[use]
+    return agg
+
+
 def state_aware_flags(values, times, rules: VariableRules, immersion) -> dict[str, np.ndarray]:
     """Flags with the ``when_immersed`` / ``when_emersed`` parameters applied by sample state.
 
@@ -69,7 +91,8 @@ def state_aware_flags(values, times, rules: VariableRules, immersion) -> dict[st
 def apply_rule_set(variables: dict[str, np.ndarray], times, rule_set: RuleSet, station: str,
                    conflicts: dict[str, np.ndarray] | None = None, *, immersion=None, reference_level=None,
                    predicted_level=None, elevation_m: float | None = None, readings=None,
-                   extra: dict[str, dict[str, np.ndarray]] | None = None) -> dict[str, dict[str, np.ndarray]]:
+                   extra: dict[str, dict[str, np.ndarray]] | None = None,
+                   manual: dict[str, list] | None = None) -> dict[str, dict[str, np.ndarray]]:
     """Flags of every variable, with the aggregate under key "aggregate".
 
     Parameters
@@ -83,6 +106,8 @@ def apply_rule_set(variables: dict[str, np.ndarray], times, rule_set: RuleSet, s
     elevation_m : the sensing point's elevation above the datum (consistency check)
     readings : raw probe readings (missing readings flag 9 in the consistency check)
     extra : {name: {check: flags}} flags computed elsewhere (e.g. immersion quality)
+    manual : {name: [(start, end, flag), ...]} review annotations; they become the ``manual``
+        check and take precedence over the automated checks in the aggregate
 
     Variables the rule set does not cover get only an aggregate (2 where a
     value exists: not evaluated; 9 where missing), so every variable carries
@@ -117,7 +142,13 @@ def apply_rule_set(variables: dict[str, np.ndarray], times, rule_set: RuleSet, s
         per.update((extra or {}).get(name, {}))
         if conflicts and name in conflicts and np.any(conflicts[name]):
             per["download_conflict"] = conflict_flags(values, conflicts[name])
-        per["aggregate"] = checks.aggregate_flags(values, list(per.values()))
+        ranges = (manual or {}).get(name)
+        if ranges:
+            per["manual"] = manual_flags(values, times, ranges)
+            auto = checks.aggregate_flags(values, [v for k, v in per.items() if k != "manual"])
+            per["aggregate"] = with_manual_precedence(auto, per["manual"])
+        else:
+            per["aggregate"] = checks.aggregate_flags(values, list(per.values()))
         flags[name] = per
     return flags
 

@@ -54,6 +54,14 @@ MIGRATIONS = [
         counts TEXT
     );
     """,
+    # 2: re-runs: what decided each dataset, its own hash, retention; the ingest key of raw files
+    """
+    ALTER TABLE datasets ADD COLUMN qc_key TEXT;
+    ALTER TABLE datasets ADD COLUMN qc_inputs TEXT;
+    ALTER TABLE datasets ADD COLUMN sha256 TEXT;
+    ALTER TABLE datasets ADD COLUMN pruned INTEGER NOT NULL DEFAULT 0;
+    ALTER TABLE runs ADD COLUMN kind TEXT
+    """,
 ]
 
 
@@ -130,8 +138,8 @@ class Catalog:
         return _row(r) if r else None
 
     def record_dataset(self, con: sqlite3.Connection, **row) -> None:
-        for key in ("flag_counts", "raw_sha256"):
-            if not isinstance(row[key], str):
+        for key in ("flag_counts", "raw_sha256", "qc_inputs"):
+            if key in row and not isinstance(row[key], str):
                 row[key] = json.dumps(row[key], sort_keys=True)
         row.setdefault("created", utc_now())
         cols = ", ".join(row)
@@ -142,9 +150,16 @@ class Catalog:
         return self._select("datasets", where, "station, deployment, version")
 
     # runs ------------------------------------------------------------------
-    def start_run(self) -> int:
+    def dataset_versions(self, deployment: str) -> list[dict]:
+        return self._select("datasets", {"deployment": deployment}, "version")
+
+    def mark_pruned(self, path: str) -> None:
         with self.transaction() as con:
-            cur = con.execute("INSERT INTO runs (started) VALUES (?)", (utc_now(),))
+            con.execute("UPDATE datasets SET pruned = 1 WHERE path = ?", (path,))
+
+    def start_run(self, kind: str = "nightly") -> int:
+        with self.transaction() as con:
+            cur = con.execute("INSERT INTO runs (started, kind) VALUES (?, ?)", (utc_now(), kind))
             return int(cur.lastrowid)
 
     def end_run(self, run_id: int, outcome: str, counts: dict) -> None:
@@ -164,7 +179,7 @@ class Catalog:
 
 def _row(r: sqlite3.Row) -> dict:
     d = dict(r)
-    for key in ("flag_counts", "raw_sha256", "counts"):
+    for key in ("flag_counts", "raw_sha256", "counts", "qc_inputs"):
         if key in d and isinstance(d[key], str):
             d[key] = json.loads(d[key])
     return d

@@ -48,7 +48,8 @@ CHECK_META = {
     "immersion_quality": ("quality_flag", "immersion probe health test (bimodality, clock, elevation)"),
     "immersion_gating": ("quality_flag", "immersion gating test (sensor in air or settling after immersion)"),
     "tide_residual": ("quality_flag", "tide residual test (observed minus predicted water level)"),
-    "aggregate": ("aggregate_quality_flag", "aggregate of all tests"),
+    "manual": ("quality_flag", "manual review"),
+    "aggregate": ("aggregate_quality_flag", "aggregate of all tests (manual review takes precedence)"),
 }
 
 IMMERSION_META = dict(long_name="immersion state of the sensing point",

@@ -284,6 +284,10 @@ class RuleSet:
     def for_variable(self, variable: str, station: str | None = None) -> VariableRules | None:
         return self._effective.get((station, variable)) or self._effective.get((None, variable))
 
+    def effective_dict(self, variable: str, station: str | None = None) -> dict | None:
+        """The rules of ``variable`` at ``station`` as written (station overrides merged in)."""
+        return self._raw.get((station, variable), self._raw.get((None, variable)))
+
     def effective_sha256(self, variable: str, station: str | None = None) -> str | None:
         raw = self._raw.get((station, variable), self._raw.get((None, variable)))
         return None if raw is None else content_sha256(raw)

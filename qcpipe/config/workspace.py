@@ -8,6 +8,9 @@ File format (TOML, our own); relative paths are taken from the file's folder::
     rules = "../qc_rules/gull-cove.toml"
     inbox = "inbox"
     archive = "../demo_archive"
+    annotations = "annotations.toml"     # optional: manual review flags
+    [archive]
+    keep_versions = 0                    # dataset versions kept per deployment (0 = all)
 """
 
 from __future__ import annotations
@@ -30,11 +33,18 @@ class _Paths(BaseModel):
     rules: str
     inbox: str
     archive: str
+    annotations: str | None = None
+
+
+class _ArchiveSettings(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+    keep_versions: int = Field(0, ge=0, description="dataset versions kept per deployment (0 = all)")
 
 
 class _WorkspaceFile(BaseModel):
     model_config = ConfigDict(extra="forbid")
     paths: _Paths
+    archive: _ArchiveSettings = _ArchiveSettings()
 
 
 @dataclass(frozen=True)
@@ -45,6 +55,8 @@ class Workspace:
     rules_path: Path
     inbox: Path
     archive: Path
+    annotations_path: Path | None = None
+    keep_versions: int = 0
 
     def load(self) -> tuple[LoadedRegister, LoadedLayouts, RuleSet]:
         """Load and cross-check register, layouts and rules (ConfigError on any problem)."""
@@ -57,7 +69,29 @@ class Workspace:
                 raise ConfigError(
                     f"{register.path}: key instrument[{i}] (id {inst.serial!r}).layout: layout "
                     f"{inst.layout!r} is not in {layouts.path}; add it there or correct the name")
+        from ..tide.harmonics import load_constituents
+        for i, site in enumerate(register.site):
+            path = register.constituents_path(site.id)
+            if path is not None:
+                if not path.exists():
+                    raise ConfigError(f"{register.path}: key site[{i}] (id {site.id!r}).tide_constituents: file "
+                                      f"{path} not found; correct the path (relative to the register)")
+                load_constituents(path)
+        self.load_annotations(register)
         return register, layouts, rules
+
+    def load_annotations(self, register=None):
+        """The workspace's review annotations (none without an annotations file)."""
+        from ..errors import ConfigError
+        from .annotations import load_annotations
+        ann = load_annotations(self.annotations_path)
+        if register is not None:
+            stations = {s.id for s in register.station}
+            for i, a in enumerate(ann.items):
+                if a.station not in stations:
+                    raise ConfigError(f"{self.annotations_path}: key annotation[{i}].station: station "
+                                      f"{a.station!r} is not in the register; correct the station id")
+        return ann
 
 
 def load_workspace(path: str | Path) -> Workspace:
@@ -67,4 +101,5 @@ def load_workspace(path: str | Path) -> Workspace:
     base = path.parent
     p = model.paths
     return Workspace(path, (base / p.register_file).resolve(), (base / p.layouts).resolve(),
-                     (base / p.rules).resolve(), (base / p.inbox).resolve(), (base / p.archive).resolve())
+                     (base / p.rules).resolve(), (base / p.inbox).resolve(), (base / p.archive).resolve(),
+                     (base / p.annotations).resolve() if p.annotations else None, model.archive.keep_versions)

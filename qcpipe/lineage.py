@@ -1,0 +1,87 @@
+"""What a dataset was made from, as content hashes: the basis of targeted re-runs.
+
+* the *ingest key* of a deployment covers what turns its raw files into the
+  pre-QC store (its time window, clock offset and checks, its layout): when it
+  changes, the raw files are read again;
+* the *QC key* covers what turns the store into a dataset (the effective rules of
+  its variables, the immersion and timing settings, its register entries, the
+  site's harmonic constants, its station's annotations, the software version):
+  when it changes, the deployment is re-QC'd from the store.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+from . import __version__
+from .config._load import content_sha256
+
+#: variables each instrument kind produces and the rule set is consulted for
+KIND_VARIABLES = {
+    "immersion_probe": ("wetness",),
+    "temperature": ("temperature",),
+    "ph": ("ph", "temperature"),
+    "conductivity": ("conductivity", "temperature"),
+    "pressure": ("temperature", "pressure", "water_level"),
+}
+
+
+def _file_sha256(path: Path | None) -> str | None:
+    if path is None or not Path(path).exists():
+        return None
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def _dump(model) -> dict:
+    return model.model_dump(mode="json", by_alias=True)
+
+
+def ingest_inputs(ctx, deployment_id: str) -> dict:
+    """What the pre-QC store of a deployment depends on (besides its raw files)."""
+    reg = ctx.register
+    dep = reg.deployment_by_id(deployment_id)
+    inst = reg.instrument_by_serial(dep.instrument)
+    d = _dump(dep)
+    clock = {k: d[k] for k in ("start", "end", "clock_offset", "clock_set", "clock_check")}
+    return {"deployment": clock, "instrument": _dump(inst), "layout": ctx.layouts.hashes.get(inst.layout)}
+
+
+def ingest_key(ctx, deployment_id: str) -> str:
+    return content_sha256(ingest_inputs(ctx, deployment_id))
+
+
+def qc_inputs(ctx, deployment_id: str) -> dict:
+    """Everything besides the store that decides a deployment's QC'd dataset."""
+    reg = ctx.register
+    dep = reg.deployment_by_id(deployment_id)
+    station = reg.station_by_id(dep.station)
+    site = reg.site_by_id(station.site)
+    inst = reg.instrument_by_serial(dep.instrument)
+    rules = {v: ctx.rules.effective_dict(v, station.id) for v in KIND_VARIABLES[inst.kind]}
+    return {
+        "rules": rules,
+        "rule_settings": {"immersion": _dump(ctx.rules.immersion), "tide_timing": _dump(ctx.rules.tide_timing)},
+        "register": {"deployment": _dump(dep), "station": _dump(station), "site": _dump(site),
+                     "instrument": _dump(inst)},
+        "tide_constants_sha256": _file_sha256(reg.constituents_path(site.id)),
+        "annotations": [a.as_dict() for a in ctx.annotations.for_station(station.id)],
+        "software_version": __version__,
+    }
+
+
+def qc_key(ctx, deployment_id: str) -> str:
+    return content_sha256(qc_inputs(ctx, deployment_id))
+
+
+def differences(old: dict, new: dict, prefix: str = "") -> list[str]:
+    """Human-readable differences between two nested dicts: 'rules.temperature.spike.suspect: 4.0 -> 5.0'."""
+    out = []
+    for key in sorted(set(old) | set(new)):
+        a, b = old.get(key, "(absent)"), new.get(key, "(absent)")
+        path = f"{prefix}{key}"
+        if isinstance(a, dict) and isinstance(b, dict):
+            out += differences(a, b, path + ".")
+        elif a != b:
+            out.append(f"{path}: {a} -> {b}")
+    return out
