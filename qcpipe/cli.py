@@ -3,6 +3,11 @@
     qcpipe process   --workspace W      process the inbox once (the nightly flow)
     qcpipe holdings  --workspace W      list what the archive holds
     qcpipe check     --workspace W      check register, layouts and rule set; process nothing
+    qcpipe rerun     --workspace W      re-QC what changed (or --deployment D) from stored data
+    qcpipe diff      --workspace W D    flag changes between two versions of a deployment's dataset
+    qcpipe lineage   --workspace W D    which raw files, rules and code made a deployment's dataset
+    qcpipe audit     --workspace W      catalog accounting and SHA-256 fixity of the whole archive
+    qcpipe package   --workspace W      BagIt archive packages per station and deployment
     qcpipe schedule  --workspace W      serve the nightly flow on a cron schedule (needs a Prefect server)
 
 Expected failures print one line ``qcpipe: error: ...`` and exit 2.
@@ -37,6 +42,35 @@ def _parser() -> argparse.ArgumentParser:
     ws(sp)
     sp.add_argument("--what", choices=["datasets", "raw", "runs", "all"], default="all",
                     help="which table to list (default all)")
+    sp.add_argument("--station", help="only this station")
+    sp.add_argument("--deployment", help="only this deployment")
+    sp.add_argument("--status", choices=["archived", "quarantined"], help="raw files with this status only")
+    sp.add_argument("--all-versions", action="store_true", help="list every dataset version, not only the latest")
+
+    sp = sub.add_parser("rerun", help="re-QC from stored data what changed, or the given deployments")
+    ws(sp)
+    sp.add_argument("-d", "--deployment", action="append", help="re-QC this deployment (repeatable)")
+    sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome")
+    sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
+
+    sp = sub.add_parser("diff", help="flag changes between two versions of a deployment's dataset")
+    ws(sp)
+    sp.add_argument("deployment", help="deployment id")
+    sp.add_argument("--from", dest="old", type=int, help="older version (default: the one before --to)")
+    sp.add_argument("--to", dest="new", type=int, help="newer version (default: the latest)")
+
+    sp = sub.add_parser("lineage", help="raw files, rules and code version behind a deployment's dataset")
+    ws(sp)
+    sp.add_argument("deployment", help="deployment id")
+    sp.add_argument("--version", type=int, help="dataset version (default: the latest)")
+
+    sp = sub.add_parser("audit", help="check that every raw file is accounted for and every hash matches")
+    ws(sp)
+
+    sp = sub.add_parser("package", help="write BagIt archive packages (RFC 8493) per station and deployment")
+    ws(sp)
+    sp.add_argument("-d", "--deployment", action="append", help="only this deployment (repeatable)")
+    sp.add_argument("-o", "--out", help="folder for the bags (default: <archive>/packages)")
 
     sp = sub.add_parser("check", help="validate configuration without processing anything")
     ws(sp)
@@ -51,7 +85,7 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
-def _process(args) -> int:
+def _prepare_flow(args):
     import os
 
     from .config import load_workspace
@@ -63,13 +97,120 @@ def _process(args) -> int:
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "INFO")
         os.environ.setdefault("PREFECT_LOGGING_LEVEL", "INFO")
     configure_prefect(ws.archive / ".prefect")
+    return ws
+
+
+def _print_summary(summary, quiet: bool) -> None:
+    lines = summary.lines()
+    print("\n".join(lines[:1] if quiet else lines))
+
+
+def _process(args) -> int:
+    ws = _prepare_flow(args)
     from .flows.nightly import nightly
 
     if not args.quiet:
         print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} (Prefect, local mode)", flush=True)
-    summary = nightly(str(ws.path))
-    lines = summary.lines()
-    print("\n".join(lines[:1] if args.quiet else lines))
+    _print_summary(nightly(str(ws.path)), args.quiet)
+    return 0
+
+
+def _rerun(args) -> int:
+    ws = _prepare_flow(args)
+    from .flows.rerun import rerun
+
+    if not args.quiet:
+        print(f"qcpipe: re-running QC in archive {ws.archive} (Prefect, local mode)", flush=True)
+    _print_summary(rerun(str(ws.path), args.deployment or None), args.quiet)
+    return 0
+
+
+def _context(args):
+    from .errors import ArchiveError
+    from .pipeline import load_context
+
+    ctx = load_context(args.workspace)
+    if not ctx.paths.catalog.exists():
+        raise ArchiveError(f"archive {ctx.paths.root} has no catalog yet; run 'qcpipe process' first")
+    return ctx
+
+
+def _versions(ctx, deployment):
+    from .errors import ArchiveError
+
+    rows = ctx.catalog.dataset_versions(deployment)
+    if not rows:
+        raise ArchiveError(f"no dataset of deployment {deployment!r} in {ctx.paths.root}; "
+                           "see 'qcpipe holdings' for the ids")
+    return {r["version"]: r for r in rows}
+
+
+def _diff(args) -> int:
+    from .diff import flag_diff_files
+    from .errors import ArchiveError
+
+    ctx = _context(args)
+    versions = _versions(ctx, args.deployment)
+    new = args.new or max(versions)
+    old = args.old or max((v for v in versions if v < new), default=None)
+    for v in (old, new):
+        if v is None or v not in versions:
+            raise ArchiveError(f"deployment {args.deployment!r} has versions {sorted(versions)}; "
+                               "choose two of them with --from and --to")
+        if versions[v]["pruned"] or not Path(versions[v]["path"]).exists():
+            raise ArchiveError(f"version {v} of {args.deployment!r} is no longer kept (retention setting)")
+    d = flag_diff_files(versions[old]["path"], versions[new]["path"], old_inputs=versions[old].get("qc_inputs"),
+                        new_inputs=versions[new].get("qc_inputs"))
+    print("\n".join(d.lines()))
+    return 0
+
+
+def _lineage(args) -> int:
+    from .errors import ArchiveError
+
+    ctx = _context(args)
+    versions = _versions(ctx, args.deployment)
+    v = args.version or max(versions)
+    if v not in versions:
+        raise ArchiveError(f"deployment {args.deployment!r} has versions {sorted(versions)}")
+    r = versions[v]
+    by_sha = {x["sha256"]: x for x in ctx.catalog.raw_files()}
+    print(f"dataset {Path(r['path']).name} (version {v}, made {r['created']}, sha256 {r.get('sha256') or '?'})")
+    print(f"  software: qcpipe {r['software_version']}")
+    print(f"  rule set: {r['rules_name']} sha256 {r['rules_sha256']}")
+    print(f"  station register: sha256 {r['register_sha256']}")
+    print(f"  QC inputs: sha256 {r.get('qc_key') or '?'}")
+    print(f"  raw files ({len(r['raw_sha256'])}):")
+    for sha in r["raw_sha256"]:
+        x = by_sha.get(sha, {})
+        print(f"    {sha[:12]} {x.get('original_name', '?'):<34} {x.get('time_start') or ''} .. "
+              f"{x.get('time_end') or ''}  from {x.get('original_path', '?')}")
+    inputs = r.get("qc_inputs") or {}
+    for var, rules in (inputs.get("rules") or {}).items():
+        print(f"  rules for {var}: {rules}")
+    for a in inputs.get("annotations") or []:
+        print(f"  annotation: {a['start']} to {a['end']} flag {a['flag']} ({a['reviewer']}): {a['reason']}")
+    return 0
+
+
+def _audit(args) -> int:
+    from .archive.audit import audit_archive
+
+    ctx = _context(args)
+    res = audit_archive(ctx.paths, ctx.catalog, ctx.inbox)
+    print("\n".join(res.lines()))
+    return 0 if res.ok else 1
+
+
+def _package(args) -> int:
+    from .archive.bag import write_bag
+
+    ctx = _context(args)
+    out = Path(args.out) if args.out else ctx.paths.root / "packages"
+    deps = args.deployment or [d["deployment"] for d in ctx.catalog.datasets()]
+    for dep in sorted(set(deps)):
+        _versions(ctx, dep)
+        print(f"bag: {write_bag(ctx, dep, out)}")
     return 0
 
 
@@ -83,8 +224,14 @@ def _holdings(args) -> int:
         print(f"archive {ws.archive} is empty (no catalog yet); run 'qcpipe process' first")
         return 0
     cat = Catalog(cat_path)
+    where = {k: v for k, v in (("station", args.station), ("deployment", args.deployment)) if v}
     if args.what in ("datasets", "all"):
-        rows = cat.datasets()
+        rows = cat.datasets(**where)
+        if not args.all_versions:
+            latest = {}
+            for r in rows:
+                latest[r["deployment"]] = r
+            rows = list(latest.values())
         print(f"datasets ({len(rows)}):")
         for r in rows:
             agg = {}
@@ -94,7 +241,7 @@ def _holdings(args) -> int:
             print(f"  {r['station']:<10} {r['deployment']:<22} v{r['version']:03d} {r['samples']:>7} samples  "
                   f"flags {dict(sorted(agg.items()))}  {Path(r['path']).name}")
     if args.what in ("raw", "all"):
-        rows = cat.raw_files()
+        rows = cat.raw_files(**where, **({"status": args.status} if args.status else {}))
         print(f"raw files ({len(rows)}):")
         for r in rows:
             where = f"{r['station']}/{r['deployment']}" if r["status"] == "archived" else r["reason"]
@@ -157,7 +304,9 @@ def _schedule(args) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
-    handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule}[args.command]
+    handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule,
+               "rerun": _rerun, "diff": _diff, "lineage": _lineage, "audit": _audit,
+               "package": _package}[args.command]
     try:
         return handler(args)
     except QcpipeError as err:

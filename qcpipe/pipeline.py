@@ -353,7 +353,8 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                            sha256=sha256_of_file(out_path))
     prune_versions(ctx, dep.id)
     run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
-    run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
+    if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
+        run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
                             notices, products)
 

@@ -51,6 +51,9 @@ EMERSED_COLOUR = OKABE_ITO["yellow"]
 
 TIME_LABEL = "Time (UTC)"
 
+#: above this many samples of one flag class its markers are drawn small and without outline
+_CROWDED = 1500
+
 
 def _figure(width: float = 10.0, height: float = 3.4) -> Figure:
     return Figure(figsize=(width, height), dpi=100, layout="constrained")
@@ -139,8 +142,9 @@ def plot_variable(times, values, agg_flags, *, immersion=None, name: str, units:
             coll = ax.scatter(t[sel], np.full(n, 0.02), transform=ax.get_xaxis_transform(), marker=marker,
                               s=size, color=colour, linewidths=1.2, zorder=3, label=label)
         else:
-            coll = ax.scatter(t[sel], v[sel], marker=marker, s=size, color=colour, zorder=2 + flag / 10,
-                              edgecolors="black" if flag in (3, 4) else "none",
+            crowded = n > _CROWDED            # many marks: small and without outline, so the series stays readable
+            coll = ax.scatter(t[sel], v[sel], marker=marker, s=min(size, 8.0) if crowded else size, color=colour,
+                              zorder=2 + flag / 10, edgecolors="black" if flag in (3, 4) and not crowded else "none",
                               linewidths=0.4, label=label)
         coll.set_gid(f"flag-{flag}")
         handles.append(coll)
@@ -180,7 +184,7 @@ def plot_water_level(times, observed, predicted, *, elevation_m: float | None, d
         le = ax.axhline(elevation_m, color=OKABE_ITO["vermillion"], lw=1.4, ls="-.",
                         label=f"sensing point {elevation_m:g} m")
         le.set_gid("elevation")
-    ax.set_ylabel(f"height above {datum_name} (m)")
+    ax.set_ylabel(_wrap(f"height above {datum_name} (m)", 32))
     ax.set_title(title, loc="left", fontsize="medium")
     ax.grid(True, color="#dddddd", lw=0.5)
     _time_axis(ax)

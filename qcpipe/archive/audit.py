@@ -1,0 +1,84 @@
+"""Accounting and fixity: every raw file ever seen is archived or quarantined, byte for byte."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ..ingest.discover import sha256_of_file
+
+
+@dataclass
+class AuditResult:
+    raw_files: int = 0
+    archived: int = 0
+    quarantined: int = 0
+    datasets_checked: int = 0
+    problems: list[str] = field(default_factory=list)
+    not_yet_processed: list[str] = field(default_factory=list)
+    orphans: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+    def lines(self) -> list[str]:
+        out = [f"raw files in the catalog: {self.raw_files} ({self.archived} archived, {self.quarantined} "
+               f"quarantined); datasets checked: {self.datasets_checked}"]
+        out += [f"  PROBLEM {p}" for p in self.problems]
+        out += [f"  not yet processed: {p}" for p in self.not_yet_processed]
+        out += [f"  not in the catalog (left by an interrupted run?): {p}" for p in self.orphans]
+        out.append("all accounted for, all hashes match" if self.ok else f"{len(self.problems)} problem(s)")
+        return out
+
+
+def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
+    """Check catalog accounting and the SHA-256 of every archived raw copy and dataset.
+
+    Problems: a raw file that is neither archived nor quarantined, a quarantined
+    file without a reason, a missing copy, a copy or dataset whose SHA-256 differs
+    from the catalog's (tampering or corruption).  Inbox files not in the
+    catalog are listed as not yet processed; archive files the catalog does not
+    know are listed as orphans.
+    """
+    res = AuditResult()
+    rows = catalog.raw_files()
+    res.raw_files = len(rows)
+    known_paths = set()
+    for r in rows:
+        name = r["original_name"]
+        if r["status"] == "archived":
+            res.archived += 1
+        elif r["status"] == "quarantined":
+            res.quarantined += 1
+            if not (r["reason"] or "").strip():
+                res.problems.append(f"{name}: quarantined without a reason")
+        else:
+            res.problems.append(f"{name}: status {r['status']!r} is neither archived nor quarantined")
+            continue
+        copy = Path(r["archived_path"] or "")
+        known_paths.add(copy.resolve())
+        if not copy.is_file():
+            res.problems.append(f"{name}: archive copy {copy} is missing")
+        elif sha256_of_file(copy) != r["sha256"]:
+            res.problems.append(f"{name}: archive copy {copy} does not match its SHA-256 {r['sha256'][:12]}")
+    for d in catalog.datasets():
+        p = Path(d["path"])
+        known_paths.add(p.resolve())
+        if d.get("pruned"):
+            continue
+        res.datasets_checked += 1
+        if not p.is_file():
+            res.problems.append(f"dataset {p.name} is missing")
+        elif d.get("sha256") and sha256_of_file(p) != d["sha256"]:
+            res.problems.append(f"dataset {p.name} does not match its SHA-256 {d['sha256'][:12]}")
+    seen = {r["sha256"] for r in rows}
+    if inbox is not None and Path(inbox).is_dir():
+        for p in sorted(Path(inbox).rglob("*")):
+            if p.is_file() and not p.name.startswith(".") and sha256_of_file(p) not in seen:
+                res.not_yet_processed.append(str(p.relative_to(inbox)))
+    for folder in ("raw", "datasets"):
+        for p in sorted((paths.root / folder).rglob("*")):
+            if p.is_file() and not p.name.startswith(".") and p.resolve() not in known_paths:
+                res.orphans.append(str(p.relative_to(paths.root)))
+    return res

@@ -1,0 +1,11 @@
+"""The run report: figures (plots), static HTML pages (html) and Prefect artifacts (artifacts).
+
+Reads the archive (datasets through ``archive.ncio``, the catalog, derived
+products) and a plain ``run`` dict; never changes the archive except for its
+own ``reports/`` folder.
+"""
+
+from .artifacts import publish_artifacts, summary_markdown
+from .html import run_from_catalog, run_from_summary, write_run_report
+
+__all__ = ["publish_artifacts", "run_from_catalog", "run_from_summary", "summary_markdown", "write_run_report"]
