@@ -96,6 +96,10 @@ def _prepare_flow(args):
     if args.verbose:
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "INFO")
         os.environ.setdefault("PREFECT_LOGGING_LEVEL", "INFO")
+    else:
+        # qcpipe prints the outcome itself (one line for an expected failure); the orchestrator's
+        # own record of a failed run, with its traceback, stays in its database
+        os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
     configure_prefect(ws.archive / ".prefect")
     return ws
 

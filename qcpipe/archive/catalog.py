@@ -12,6 +12,8 @@ import sqlite3
 from contextlib import contextmanager
 from pathlib import Path
 
+from .faults import crash_point
+
 MIGRATIONS = [
     # 1: first schema
     """
@@ -65,6 +67,23 @@ MIGRATIONS = [
 ]
 
 
+_RUN_LOCKS: dict = {}      # (catalog path, run id) -> ArchiveLock held for the run
+
+
+def remove_stale_temporaries(root: Path) -> list[Path]:
+    """Delete temporary files an interrupted run left behind (``.<name>.<random>.tmp``; see store.atomic_path).
+
+    Only called under the archive lock, so no live run is writing them.
+    """
+    removed = []
+    for p in Path(root).rglob(".*.tmp"):
+        if ".prefect" in p.parts or not p.is_file():
+            continue
+        p.unlink()
+        removed.append(p)
+    return removed
+
+
 def utc_now() -> str:
     return dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
@@ -91,6 +110,7 @@ class Catalog:
         try:
             con.execute("BEGIN IMMEDIATE")
             yield con
+            crash_point("before-commit catalog")
             con.execute("COMMIT")
         except BaseException:
             con.execute("ROLLBACK")
@@ -158,14 +178,27 @@ class Catalog:
             con.execute("UPDATE datasets SET pruned = 1 WHERE path = ?", (path,))
 
     def start_run(self, kind: str = "nightly") -> int:
+        """Record a run's start, holding the archive's lock until :meth:`end_run` (one run at a time)."""
+        from .lock import ArchiveLock
+
+        lock = ArchiveLock(self.path.parent)
+        lock.__enter__()
+        remove_stale_temporaries(self.path.parent)
         with self.transaction() as con:
             cur = con.execute("INSERT INTO runs (started, kind) VALUES (?, ?)", (utc_now(), kind))
-            return int(cur.lastrowid)
+            run_id = int(cur.lastrowid)
+        _RUN_LOCKS[(str(self.path), run_id)] = lock
+        return run_id
 
     def end_run(self, run_id: int, outcome: str, counts: dict) -> None:
-        with self.transaction() as con:
-            con.execute("UPDATE runs SET ended = ?, outcome = ?, counts = ? WHERE id = ?",
-                        (utc_now(), outcome, json.dumps(counts, sort_keys=True, default=int), run_id))
+        try:
+            with self.transaction() as con:
+                con.execute("UPDATE runs SET ended = ?, outcome = ?, counts = ? WHERE id = ?",
+                            (utc_now(), outcome, json.dumps(counts, sort_keys=True, default=int), run_id))
+        finally:
+            lock = _RUN_LOCKS.pop((str(self.path), run_id), None)
+            if lock is not None:
+                lock.release()
 
     def runs(self) -> list[dict]:
         return self._select("runs", {}, "id")

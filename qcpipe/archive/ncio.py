@@ -22,7 +22,14 @@ def write_dataset_atomic(ds: xr.Dataset, final: str | Path, encoding: dict | Non
     final = Path(final)
     with NC_LOCK:
         with atomic_path(final) as tmp:
-            ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
+            try:
+                ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
+            except RuntimeError as err:          # the netCDF library reports a full disk as "HDF error"
+                import shutil
+
+                if shutil.disk_usage(final.parent).free < 16 * 1024 * 1024:
+                    raise OSError(28, "No space left on device") from err
+                raise
     return final
 
 

@@ -22,6 +22,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from ..config._load import check_safe_id
+from .faults import crash_point
 
 _UNSAFE = re.compile(r"[^A-Za-z0-9_.\-]")
 
@@ -86,18 +87,39 @@ def atomic_path(final: str | Path):
     never a half-written one.  On any error the temporary file is removed.
     """
     final = Path(final)
-    final.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".tmp", dir=final.parent)
+    try:
+        final.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".tmp", dir=final.parent)
+    except OSError as err:
+        raise _archive_error(err, final) from None
     os.close(fd)
     tmp = Path(tmp)
     try:
-        yield tmp
-        with open(tmp, "rb") as fh:
-            os.fsync(fh.fileno())
+        try:
+            yield tmp
+            with open(tmp, "rb") as fh:
+                os.fsync(fh.fileno())
+        except OSError as err:
+            raise _archive_error(err, final) from None
+        crash_point(f"before-rename {final.name}")
         os.replace(tmp, final)
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def _archive_error(err: OSError, final: Path):
+    """An expected storage failure as a one-line ArchiveError (disk full, permissions)."""
+    import errno
+
+    from ..errors import ArchiveError
+
+    if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        return ArchiveError(f"disk full while writing {final}: free space on the archive's disk and run again "
+                            "(nothing half-written was kept; earlier files and versions are intact)")
+    if err.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
+        return ArchiveError(f"cannot write {final} ({err.strerror}); check the archive folder's permissions")
+    return err
 
 
 def write_text_atomic(final: str | Path, text: str) -> Path:
