@@ -104,9 +104,31 @@ def _prepare_flow(args):
     return ws
 
 
+def _run_with_progress(args, fn, *a):
+    from . import progress
+
+    if not args.quiet:
+        progress.install()
+    try:
+        return fn(*a)
+    finally:
+        progress.uninstall()
+
+
 def _print_summary(summary, quiet: bool) -> None:
     lines = summary.lines()
     print("\n".join(lines[:1] if quiet else lines))
+    if not quiet and summary.results and sys.stdout.isatty():
+        from rich.console import Console
+        from rich.table import Table
+
+        table = Table(title="aggregate flags by station and variable")
+        for col in ("station", "deployment", "variable", "pass", "not eval.", "suspect", "fail", "missing"):
+            table.add_column(col, justify="right" if col not in ("station", "deployment", "variable") else "left")
+        for r in summary.results:
+            for var, per in r.flag_counts.items():
+                table.add_row(r.station, r.deployment, var, *(str(per.get(k, 0)) for k in ("1", "2", "3", "4", "9")))
+        Console().print(table)
 
 
 def _process(args) -> int:
@@ -115,7 +137,7 @@ def _process(args) -> int:
 
     if not args.quiet:
         print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} (Prefect, local mode)", flush=True)
-    _print_summary(nightly(str(ws.path)), args.quiet)
+    _print_summary(_run_with_progress(args, nightly, str(ws.path)), args.quiet)
     return 0
 
 
@@ -125,7 +147,7 @@ def _rerun(args) -> int:
 
     if not args.quiet:
         print(f"qcpipe: re-running QC in archive {ws.archive} (Prefect, local mode)", flush=True)
-    _print_summary(rerun(str(ws.path), args.deployment or None), args.quiet)
+    _print_summary(_run_with_progress(args, rerun, str(ws.path), args.deployment or None), args.quiet)
     return 0
 
 

@@ -27,7 +27,7 @@ from .config.layouts import LoadedLayouts
 from .config.register import LoadedRegister
 from .config.rules import RuleSet
 from .convert.by_kind import physical_from_raw
-from . import lineage
+from . import lineage, progress
 from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file, sha256_of_file
 from .ingest.timebase import merge_records
 from .qc import apply_rule_set, flag_counts
@@ -70,7 +70,9 @@ def find_new_files(ctx: Context) -> tuple[list[RawFile], dict]:
         from .errors import ConfigError
         raise ConfigError(f"{ctx.workspace_path}: key paths.inbox: folder {ctx.inbox} does not exist; "
                           "create it or correct the path")
-    return discover_files(ctx.inbox, ctx.catalog.known_hashes())
+    new, counts = discover_files(ctx.inbox, ctx.catalog.known_hashes())
+    progress.expect("read", len(new))
+    return new, counts
 
 
 # --- one file -------------------------------------------------------------------
@@ -88,6 +90,8 @@ def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts
         return FileOutcome(raw, ingested=ingest_file(raw, register, layouts))
     except FileRejected as err:
         return FileOutcome(raw, reason=str(err))
+    finally:
+        progress.step("read", raw.name)
 
 
 def quarantine_file(ctx: Context, outcome: FileOutcome) -> Path:
@@ -355,6 +359,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
     if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
         run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
+    progress.step("qc", f"{station.id}/{dep.id} v{version:03d}")
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
                             notices, products)
 
@@ -544,6 +549,7 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     stations: dict[str, list[str]] = {}
     for d in sorted(todo - set(gauges), key=lambda d: (order.get(_kind(ctx, d), 2), d)):
         stations.setdefault(reg.deployment_by_id(d).station, []).append(d)
+    progress.expect("qc", len(todo))
     return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}))
 
 
