@@ -1,9 +1,16 @@
 #!/usr/bin/env bash
-# Install the Debian library the CF checker needs (UDUNITS-2), only when missing.
+# Install the Debian packages the tests need, each only when missing: UDUNITS-2 (CF checker), Chromium (report).
 set -euo pipefail
 if ! ldconfig -p 2>/dev/null | grep -q libudunits2; then
     if [ "$(id -u)" = 0 ]; then SUDO=""; else SUDO="sudo"; fi
     echo "installing libudunits2-0 (needed by the CF checker)"
     $SUDO apt-get update -qq
     DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq libudunits2-0 >/dev/null
+fi
+# Headless Chromium for the report's browser test (tests/report/test_browser.py), only when missing.
+if ! command -v chromium >/dev/null 2>&1; then
+    if [ "$(id -u)" = 0 ]; then SUDO=""; else SUDO="sudo"; fi
+    echo "installing chromium (needed by the report's browser test)"
+    $SUDO apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq chromium >/dev/null
 fi

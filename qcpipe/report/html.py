@@ -37,14 +37,22 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
           "products": ["/abs/path/derived/..."],
       }],
       "notices": ["run-level notices"],     # (optional)
+      "kind": "nightly",                    # (optional) catalog runs.kind: nightly, rerun
+      "reruns": {"kc-mid-temp-2026-09": ["rule set changed"]},   # (optional) re-QC'd deployments and why
       "diff": [{                            # (optional) flags that changed from the previous version
           "station": "kc-mid", "deployment": "kc-mid-temp-2026-09", "variable": "temperature",
           "check": "spike",                 # or "aggregate"
-          "from_flag": 1, "to_flag": 3, "count": 12,
-          "first": "2026-09-20T03:10:00Z", "last": "2026-09-21T11:00:00Z",
-          "rule_change": "spike.suspect 4.0 -> 3.5",   # (optional) what in the rule set changed
+          "from_flag": 1, "to_flag": 3,     # None: the check did not exist in that version ("absent")
+          "count": 12,
+          "ranges": [["2026-09-20T03:10:00Z", "2026-09-20T04:00:00Z"]],   # UTC runs of moved samples
+          "rule_change": "rules.temperature.spike.suspect: 4.0 -> 3.5",  # (optional) input differences
       }],
     }
+
+``run_diff(archive_root, run)`` computes them for the run's new versions;
+``diff_rows(flag_diff, station=..., deployment=...)`` turns one
+``qcpipe.diff.FlagDiff`` into these rows (``"first"`` and ``"last"`` are
+accepted instead of ``"ranges"``).
 
 Notices are sorted into the "Needs attention" groups by their wording (clock,
 probe readings, elevation, other); a dataset whose attributes say
@@ -98,7 +106,6 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
                      ended: str | None = None, outcome: str | None = None) -> dict:
     """The ``run`` dict (see the module docstring) from a ``pipeline.RunSummary``."""
     results = []
-    notices = []
     for r in summary.results:
         results.append({
             "station": str(r.station), "deployment": str(r.deployment), "dataset": str(r.dataset),
@@ -111,7 +118,42 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "ingested": int(summary.ingested),
             "quarantined": [{"name": str(n), "reason": str(why)} for n, why in summary.quarantined],
             "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox], "results": results,
-            "notices": notices}
+            "notices": [str(n) for n in getattr(summary, "notices", [])],
+            "reruns": {str(d): [str(w) for w in why] for d, why in getattr(summary, "reruns", {}).items()}}
+
+
+def diff_rows(flag_diff, *, station: str, deployment: str) -> list[dict]:
+    """Rows of the run dict's ``diff`` from a ``qcpipe.diff.FlagDiff`` (its moves and input changes)."""
+    changes = "; ".join(str(c) for c in getattr(flag_diff, "input_changes", []) or [])
+    return [{"station": str(station), "deployment": str(deployment), "variable": str(m.variable),
+             "check": str(m.check), "from_flag": None if m.from_flag is None else int(m.from_flag),
+             "to_flag": None if m.to_flag is None else int(m.to_flag), "count": int(m.count),
+             "ranges": [[str(a), str(b)] for a, b in m.ranges], "rule_change": changes}
+            for m in flag_diff.moves]
+
+
+def run_diff(archive_root: str | Path, run: dict) -> list[dict]:
+    """``diff`` rows for the run's results: each new version against the version before it.
+
+    Uses ``qcpipe.diff.flag_diff_files`` with the QC inputs the catalog
+    recorded for both versions; versions that are pruned or missing are skipped.
+    """
+    from ..diff import flag_diff_files
+
+    cat = Catalog(Path(archive_root) / "catalog.sqlite")
+    rows: list[dict] = []
+    for r in run.get("results", []):
+        if int(r.get("version", 1)) <= 1:
+            continue
+        versions = {int(v["version"]): v for v in cat.dataset_versions(r["deployment"])}
+        old, new = versions.get(int(r["version"]) - 1), versions.get(int(r["version"]))
+        if old is None or new is None or old.get("pruned") or not Path(old["path"]).exists() \
+                or not Path(new["path"]).exists():
+            continue
+        fd = flag_diff_files(old["path"], new["path"], old_inputs=old.get("qc_inputs"),
+                             new_inputs=new.get("qc_inputs"))
+        rows += diff_rows(fd, station=r["station"], deployment=r["deployment"])
+    return rows
 
 
 def run_from_catalog(archive_root: str | Path, run_id: int | None = None) -> dict:
@@ -137,7 +179,8 @@ def run_from_catalog(archive_root: str | Path, run_id: int | None = None) -> dic
                for d in cat.datasets() if lo <= d["created"] <= hi]
     quarantined = [{"name": f["original_name"], "reason": f["reason"]}
                    for f in cat.raw_files(status="quarantined") if lo <= f["first_seen"] <= hi]
-    return {"run_id": int(row["id"]), "started": row["started"], "ended": row["ended"], "outcome": row["outcome"],
+    return {"run_id": int(row["id"]), "kind": row.get("kind"), "started": row["started"], "ended": row["ended"],
+            "outcome": row["outcome"],
             "files_seen": int(counts.get("files_seen", 0)), "files_known": int(counts.get("files_known", 0)),
             "ingested": int(counts.get("ingested", 0)), "quarantined": quarantined,
             "repeated_in_inbox": [], "results": results, "notices": []}
@@ -413,7 +456,8 @@ _FLAG_HEADER = ["Station", "Deployment", "Version", "Variable"] + [
 
 
 def _run_title(run: dict) -> str:
-    return f"qcpipe run {run['run_id']}" if run.get("run_id") is not None else "qcpipe run"
+    kind = f" {run['kind']}" if run.get("kind") else ""
+    return f"qcpipe{kind} run {run['run_id']}" if run.get("run_id") is not None else f"qcpipe{kind} run"
 
 
 def _run_subtitle(run: dict, archive_root: Path) -> str:
@@ -459,6 +503,10 @@ def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
         if qdir.is_dir():
             out.append(f"<p class=\"muted\">Copies and reasons are in "
                        f"<code>{e(qdir)}</code>.</p>")
+    if run.get("reruns"):
+        out.append("<h3>Checked again from stored data</h3>")
+        out.append(_table(["Deployment", "Why"], [[e(d), e("; ".join(str(w) for w in why))]
+                                                  for d, why in sorted(run["reruns"].items())]))
     if run.get("repeated_in_inbox"):
         out.append("<h3>Repeated copies in the inbox (skipped)</h3><ul>" +
                    "".join(f"<li>{e(x)}</li>" for x in run["repeated_in_inbox"]) + "</ul>")
@@ -483,15 +531,24 @@ def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
 
 def _diff_html(diff: list[dict]) -> str:
     rows = []
+    def flag(x) -> str:
+        return "absent" if x is None else f"{e(x)} {e(FLAG_WORDS.get(str(x), ''))}".strip()
+
     for d in diff:
-        fr, to = str(d.get("from_flag", "")), str(d.get("to_flag", ""))
+        ranges = [list(r) for r in d.get("ranges") or []]
+        if not ranges and (d.get("first") or d.get("last")):
+            ranges = [[d.get("first"), d.get("last")]]
+        shown = "<br>".join(e(a) if a == b else f"{e(a)} to {e(b)}" for a, b in ranges[:3])
+        if len(ranges) > 3:
+            shown += f"<br><span class=\"muted\">and {len(ranges) - 3} more</span>"
         rows.append([e(d.get("station")), e(d.get("deployment")), e(d.get("variable")), e(d.get("check")),
-                     f"{e(fr)} {e(FLAG_WORDS.get(fr, ''))} &rarr; {e(to)} {e(FLAG_WORDS.get(to, ''))}",
-                     _n(d.get("count", 0)), e(d.get("first")), e(d.get("last")), e(d.get("rule_change"))])
+                     f"{flag(d.get('from_flag'))} &rarr; {flag(d.get('to_flag'))}",
+                     _n(d.get("count", 0)), shown, e(d.get("rule_change"))])
     return ("<h2 id=\"what-changed\">What changed</h2>"
-            "<p>Flags that differ from the previous version of each dataset.</p>" +
-            _table(["Station", "Deployment", "Variable", "Check", "Flag", "samples", "first", "last",
-                    "Rule difference"], rows, numeric={5}))
+            "<p>Flags that differ from the previous version of each dataset, and the differences in the "
+            "inputs that were recorded for them.</p>" +
+            _table(["Station", "Deployment", "Variable", "Check", "Flag", "samples", "when (UTC)",
+                    "Input difference"], rows, numeric={5}))
 
 
 # --- station pages -----------------------------------------------------------------------------

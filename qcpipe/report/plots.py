@@ -153,8 +153,11 @@ def plot_variable(times, values, agg_flags, *, immersion=None, name: str, units:
     ax.grid(True, color="#dddddd", lw=0.5)
     _time_axis(ax)
     if handles:
-        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize="small",
-                  title="aggregate flag", title_fontsize="small", frameon=False, markerscale=1.5)
+        leg = ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize="small",
+                        title="aggregate flag", title_fontsize="small", frameon=False)
+        for h in leg.legend_handles:          # one readable marker size in the legend, however crowded the plot
+            if hasattr(h, "set_sizes"):
+                h.set_sizes([40.0])
     return fig
 
 
