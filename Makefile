@@ -5,7 +5,7 @@ PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 TESTSTAMP := $(VENV)/.installed-test
 
-.PHONY: demo test check-config clean-demo demo-data
+.PHONY: demo test check-config clean-demo demo-data bench
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
@@ -26,7 +26,7 @@ $(TESTSTAMP): pyproject.toml | $(PY)
 demo: $(STAMP)
 	$(VENV)/bin/qcpipe process --workspace sample_raw/workspace.toml
 
-## make test: system library for the CF checker, test extras, whole suite
+## make test: Debian packages the tests need (libudunits2-0, chromium), test extras, whole suite
 test: $(TESTSTAMP)
 	@bash tools/ensure-system-libs.sh
 	$(PY) -m pytest -q
@@ -40,3 +40,7 @@ demo-data: $(STAMP)
 
 clean-demo:
 	rm -rf demo_archive
+
+## make bench: speed ratios against their targets (benchmarks/README.md); writes benchmarks/last-run.json
+bench: $(STAMP)
+	$(PY) benchmarks/run.py

@@ -261,6 +261,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
             conflicts[var_out] = store.conflict[raw]
     qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
     label = f"{station.id}/{dep.id}"
+    transitions = None
     notices: list[str] = []
     tide_attrs: dict = {}
     qc_args: dict = {}
@@ -274,6 +275,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         tide_attrs.update(analysis.attrs)
         ref_level, ref_source = tide.reference(store.time) if tide is not None else (None, "none")
         tide_attrs["immersion_reference_level"] = ref_source
+        transitions = analysis
         qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
                        readings=store.values["probe_reading"], extra={"wetness": {"immersion_quality": analysis.quality}})
     else:
@@ -325,6 +327,8 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     ds, enc = build_cf_dataset(time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
                                station=station, site=site, deployment=dep, register_info=reg.info,
                                provenance=provenance, version=version, history=history, raw_units=store.units)
+    if transitions is not None and transitions.transition_time is not None:
+        _add_transitions(ds, enc, transitions)
     for var, lines in notes_manual.items():
         ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
     first = cat.dataset_versions(dep.id)
@@ -378,6 +382,20 @@ def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
         cat.mark_pruned(v["path"])
         removed.append(p)
     return removed
+
+
+def _add_transitions(ds: xr.Dataset, enc: dict, a) -> None:
+    """Observed wet/dry transitions and their offsets from the prediction, on their own dimension."""
+    secs = a.transition_time.astype("datetime64[ns]").astype(np.int64) / 1e9
+    ds["transition_time"] = xr.DataArray(secs, dims=("transition",), attrs=dict(
+        long_name="time of an observed wet/dry transition of the probe (UTC)",
+        units="seconds since 1970-01-01T00:00:00Z", calendar="standard"))
+    ds["transition_kind"] = xr.DataArray(a.transition_kind, dims=("transition",), attrs=dict(
+        long_name="kind of transition", flag_values=np.array([0, 1], np.int8), flag_meanings="draining flooding"))
+    ds["transition_offset"] = xr.DataArray(a.transition_offset_s, dims=("transition",), attrs=dict(
+        long_name="observed minus predicted transition time (positive: logger clock ahead)", units="s"))
+    enc.update(transition_time={"_FillValue": None}, transition_kind={"_FillValue": None},
+               transition_offset={"_FillValue": np.float64(np.nan)})
 
 
 def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile], tide=None) -> DeploymentResult:

@@ -74,6 +74,9 @@ class ProbeAnalysis:
     attrs: dict = field(default_factory=dict)
     clock: timing.ClockVerdict | None = None
     elevation: timing.ElevationCheck | None = None
+    transition_time: np.ndarray | None = None      # observed transitions (UTC), floods then drains
+    transition_kind: np.ndarray | None = None      # 1 flooding, 0 draining
+    transition_offset_s: np.ndarray | None = None  # observed minus predicted, NaN if unmatched
 
 
 def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settings: ImmersionSettings,
@@ -153,6 +156,15 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
             quality[ok] = np.maximum(quality[ok], SUSPECT)
         shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
         obs = timing.observed_transitions(t, state)
+        pc = timing.predicted_crossings(t, pred, elevation_m=elevation_m)
+        offs = timing.transition_offsets(obs.flooding, obs.draining, pc.flooding, pc.draining,
+                                         max_offset_s=timing_rules.max_offset)
+        tt = np.concatenate((obs.flooding, obs.draining))
+        order = np.argsort(tt, kind="stable")
+        result.transition_time = tt[order]
+        result.transition_kind = np.concatenate((np.ones(obs.flooding.size, np.int8),
+                                                 np.zeros(obs.draining.size, np.int8)))[order]
+        result.transition_offset_s = np.concatenate((offs.flood_offsets_s, offs.drain_offsets_s))[order]
         ref_level, ref_source = tide.reference(t)
         eff = timing.effective_elevation(obs.flooding - shift, obs.draining - shift, t, ref_level)
         if eff.n >= 4:
