@@ -25,6 +25,13 @@ from ..config._load import check_safe_id
 from .faults import crash_point
 
 _UNSAFE = re.compile(r"[^A-Za-z0-9_.\-]")
+_SHA256 = re.compile(r"[0-9a-f]{64}")
+
+
+def _digest(sha256: str) -> str:
+    if not isinstance(sha256, str) or not _SHA256.fullmatch(sha256):
+        raise ValueError(f"{sha256!r} is not a SHA-256 digest (64 lowercase hex digits)")
+    return sha256
 
 
 def safe_file_name(name: str) -> str:
@@ -55,10 +62,10 @@ class ArchivePaths:
 
     def raw_copy(self, station: str, deployment: str, sha256: str, name: str) -> Path:
         check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")
-        return self._inside(self.root / "raw" / station / deployment / f"{sha256[:12]}_{safe_file_name(name)}")
+        return self._inside(self.root / "raw" / station / deployment / f"{_digest(sha256)[:12]}_{safe_file_name(name)}")
 
     def quarantine(self, sha256: str, name: str) -> Path:
-        return self._inside(self.root / "quarantine" / f"{sha256[:12]}_{safe_file_name(name)}")
+        return self._inside(self.root / "quarantine" / f"{_digest(sha256)[:12]}_{safe_file_name(name)}")
 
     def ingested(self, station: str, deployment: str) -> Path:
         check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")

@@ -25,7 +25,8 @@ SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}$")
 
 def check_safe_id(value: str, what: str) -> str:
     """Reject identifiers that could escape the archive when used in a path."""
-    if not isinstance(value, str) or not SAFE_ID.match(value) or ".." in value:
+    # fullmatch: ``$`` in SAFE_ID would also match before a trailing newline
+    if not isinstance(value, str) or not SAFE_ID.fullmatch(value) or ".." in value:
         raise ValueError(
             f"{what} {value!r} is not a safe identifier; use 1-64 letters, digits, "
             "'-', '_' or '.', starting with a letter or digit (no '/', '..' or spaces)")
@@ -42,11 +43,26 @@ def read_toml(path: Path) -> dict[str, Any]:
     except UnicodeDecodeError as err:
         raise ConfigError(f"{path}: not UTF-8 text (byte {err.start}); save the file as UTF-8") from None
     except OSError as err:
-        raise ConfigError(f"{path}: cannot read ({err.strerror})") from None
+        raise ConfigError(f"{path}: cannot read ({err.strerror}); check the path and its permissions") from None
+    except ValueError as err:                 # e.g. a NUL character in the path
+        raise ConfigError(f"{shown(str(path))}: cannot read ({err}); check the path") from None
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{path}: TOML syntax error: {err}; fix the line it names") from None
+
+
+def shown(text: str) -> str:
+    """``text`` with control and other non-printable characters escaped, so a message stays one line."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
+
+
+def shown_key(key: Any) -> str:
+    """A TOML key as it appears in a dotted key path: quoted when it is empty or holds odd characters."""
+    key = str(key)
+    if key and key.isprintable() and not any(c in key for c in ". '\"[]"):
+        return key
+    return shown(repr(key))
 
 
 def _key_path(loc: tuple, data: Any) -> str:
@@ -59,13 +75,13 @@ def _key_path(loc: tuple, data: Any) -> str:
                 entry = node[item]
                 ident = entry.get("id") or entry.get("serial") if isinstance(entry, dict) else None
                 if ident:
-                    label = f"[{item}] (id {ident!r})"
+                    label = f"[{item}] (id {shown(repr(ident))})"
                 node = entry
             except (IndexError, KeyError, TypeError, AttributeError):
                 node = None
             parts.append(label)
         else:
-            parts.append(("." if parts else "") + str(item))
+            parts.append(("." if parts else "") + shown_key(item))
             try:
                 node = node[item]
             except (KeyError, TypeError, IndexError):
@@ -90,11 +106,11 @@ def validate(model: type[M], data: dict[str, Any], path: Path) -> M:
         errs = exc.errors(include_url=False)
         first = errs[0]
         key = _key_path(tuple(first["loc"]), data)
-        msg = first["msg"].removeprefix("Value error, ")
+        msg = shown(first["msg"].removeprefix("Value error, "))
         more = f" (and {len(errs) - 1} more problem{'s' if len(errs) > 2 else ''})" if len(errs) > 1 else ""
         bad = ""
         if first.get("type") not in ("missing",) and "input" in first and not isinstance(first["input"], (dict, list)):
-            bad = f" (got {first['input']!r})"
+            bad = f" (got {shown(repr(first['input']))[:200]})"
         raise ConfigError(f"{path}: key {key}: {msg}{bad}; {_hint(first)}{more}") from None
 
 

@@ -21,6 +21,8 @@ Several time columns are joined with one space before ``format`` is applied.
 
 from __future__ import annotations
 
+import codecs
+import datetime as dt
 import fnmatch
 import re
 from pathlib import Path
@@ -43,7 +45,13 @@ KNOWN_VARIABLES = set().union(*VARIABLES_BY_KIND.values())
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+
+def _column_number(v):
+    if isinstance(v, int) and v < 0:
+        raise ValueError(f"column numbers count from 0, got {v}")
+    return v
 
 
 class TimeSpec(_Strict):
@@ -55,7 +63,18 @@ class TimeSpec(_Strict):
     def _has_directives(cls, v: str) -> str:
         if "%" not in v:
             raise ValueError("time format needs strftime directives such as '%Y-%m-%d %H:%M:%S'")
+        sample = dt.datetime(2026, 10, 5, 13, 24, 57)
+        try:
+            dt.datetime.strptime(sample.strftime(v), v)
+        except ValueError as err:
+            raise ValueError(f"time format {v!r} cannot be read back ({err}); use strftime directives "
+                             "such as '%Y-%m-%d %H:%M:%S'") from None
         return v
+
+    @field_validator("columns")
+    @classmethod
+    def _numbers(cls, v: list) -> list:
+        return [_column_number(c) for c in v]
 
 
 class SerialSpec(_Strict):
@@ -77,6 +96,8 @@ class SerialSpec(_Strict):
 class VariableSpec(_Strict):
     column: str | int
     units: str
+
+    _c = field_validator("column")(classmethod(lambda cls, v: _column_number(v)))
 
     @field_validator("units")
     @classmethod
@@ -106,16 +127,20 @@ class Layout(_Strict):
             v = "\t"
         if len(v) != 1:
             raise ValueError("delimiter must be one character (write \"\\t\" for tab)")
+        if v != "\t" and not v.isprintable() or v.isalnum():
+            raise ValueError(f"delimiter {v!r} cannot separate fields; use a printable mark such as ',' "
+                             "';' or \"\\t\"")
         return v
 
     @field_validator("encoding")
     @classmethod
     def _enc(cls, v: str) -> str:
-        import codecs
         try:
-            codecs.lookup(v)
+            info = codecs.lookup(v)
         except LookupError:
             raise ValueError(f"unknown text encoding {v!r}; use e.g. 'utf-8' or 'latin-1'") from None
+        if not getattr(info, "_is_text_encoding", True):
+            raise ValueError(f"{v!r} is not a text encoding; use e.g. 'utf-8' or 'latin-1'")
         return v
 
     @field_validator("variables")
@@ -131,6 +156,9 @@ class Layout(_Strict):
         cols = list(self.time.columns) + [s.column for s in self.variables.values()]
         if not self.column_names and any(isinstance(c, str) for c in cols):
             raise ValueError("column_names = false, so columns must be given by 0-based number")
+        if self.decimal == self.delimiter:
+            raise ValueError(f"decimal and delimiter are both {self.delimiter!r}; numbers could not be told "
+                             "from fields")
         return self
 
     def reads(self, file_name: str) -> bool:

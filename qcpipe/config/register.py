@@ -34,10 +34,25 @@ from ._load import check_safe_id, content_sha256, read_toml, validate
 InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure"]
 
 _OFFSET_RE = re.compile(r"^([+-])(\d{2}):(\d{2})$")
+#: years a deployment's times may lie in (UTC): far inside what datetime64[ns] can hold
+YEARS = (1900, 2199)
+#: the largest clock drift a clock check may imply (seconds per day); more is a wrong offset or a typo
+MAX_DRIFT_S_PER_DAY = 3600.0
+
+
+def _in_years(v: dt.datetime, what: str) -> dt.datetime:
+    if not YEARS[0] <= v.year <= YEARS[1] or (v.utcoffset() is not None and
+                                              not YEARS[0] <= (v.replace(tzinfo=None) - v.utcoffset()).year <= YEARS[1]):
+        raise ValueError(f"{what} {v.isoformat()} is not in the years {YEARS[0]} to {YEARS[1]}")
+    return v
+
+
+def _naive_utc(v: dt.datetime) -> dt.datetime:
+    return v.replace(tzinfo=None) - v.utcoffset()
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 class RegisterInfo(_Strict):
@@ -101,7 +116,12 @@ class ClockCheck(_Strict):
     def _naive(cls, v: dt.datetime) -> dt.datetime:
         if v.tzinfo is not None:
             raise ValueError("logger_time is the logger's own clock reading; write it without an offset")
-        return v
+        return _in_years(v, "logger_time")
+
+    @field_validator("reference_time")
+    @classmethod
+    def _years(cls, v: dt.datetime) -> dt.datetime:
+        return _in_years(v, "reference_time")
 
 
 class ProbeReference(_Strict):
@@ -152,6 +172,11 @@ class Deployment(_Strict):
     def _safe(cls, v: str) -> str:
         return check_safe_id(v, "deployment id")
 
+    @field_validator("start", "end", "clock_set")
+    @classmethod
+    def _years(cls, v, info):
+        return v if v is None else _in_years(v, info.field_name)
+
     @field_validator("clock_offset")
     @classmethod
     def _offset(cls, v: str) -> str:
@@ -164,6 +189,20 @@ class Deployment(_Strict):
     def _window(self):
         if self.end <= self.start:
             raise ValueError(f"deployment end {self.end.isoformat()} is not after start {self.start.isoformat()}; swap or correct them")
+        if self.clock_check is not None:
+            # the drift correction runs from clock_set to the clock check, on the UTC axis
+            clock_set = _naive_utc(self.clock_set or self.start)
+            check = self.clock_check.logger_time - dt.timedelta(seconds=self.offset_seconds)
+            span = (check - clock_set).total_seconds()
+            if span <= 0:
+                raise ValueError(f"clock_check.logger_time {self.clock_check.logger_time.isoformat()} (logger clock) "
+                                 f"is not after clock_set {clock_set.isoformat()} UTC; correct the clock check, "
+                                 "clock_set or clock_offset")
+            error = (check - _naive_utc(self.clock_check.reference_time)).total_seconds()
+            per_day = abs(error) / span * 86400.0
+            if per_day > MAX_DRIFT_S_PER_DAY:
+                raise ValueError(f"clock_check implies a clock drift of {per_day:.0f} s per day since clock_set, more "
+                                 f"than {MAX_DRIFT_S_PER_DAY:.0f}; check clock_offset and the clock check times")
         return self
 
     @property

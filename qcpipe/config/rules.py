@@ -22,6 +22,7 @@ Durations are text ("45 min"); thresholds are numbers in the variable's ``units`
 from __future__ import annotations
 
 import copy
+import math
 from pathlib import Path
 from typing import Any
 
@@ -29,7 +30,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from ..errors import ConfigError
 from ..units import seconds_from_duration
-from ._load import check_safe_id, content_sha256, read_toml, validate
+from ._load import check_safe_id, content_sha256, read_toml, shown, shown_key, validate
 
 #: stored units of each variable the checks can see
 VARIABLE_UNITS = {
@@ -45,16 +46,27 @@ GLOBAL_KEYS = ("immersion", "tide_timing")
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 def _duration(v: Any) -> float:
     if isinstance(v, (int, float)) and not isinstance(v, bool):
         raise ValueError(f"durations are text with a unit, e.g. '{v} min'")
     s = seconds_from_duration(v)
+    if not math.isfinite(s):
+        raise ValueError(f"duration {v!r} is not a finite length of time")
     if s <= 0:
         raise ValueError(f"duration {v!r} must be longer than zero")
     return s
+
+
+def _seconds_or_duration(v: Any) -> float:
+    """Seconds given as a float (the defaults) or a duration text; either must be finite and positive."""
+    if isinstance(v, float):
+        if not math.isfinite(v) or v <= 0:
+            raise ValueError(f"duration {v!r} s must be finite and longer than zero")
+        return v
+    return _duration(v)
 
 
 class GrossRange(_Strict):
@@ -223,8 +235,7 @@ class ImmersionSettings(_Strict):
                                        "threshold and the midpoint of the air/water references, as a fraction "
                                        "of their distance")
 
-    _d = field_validator("min_state", mode="before")(classmethod(
-        lambda cls, v: v if isinstance(v, float) else _duration(v)))
+    _d = field_validator("min_state", mode="before")(classmethod(lambda cls, v: _seconds_or_duration(v)))
 
 
 class TideTiming(_Strict):
@@ -234,7 +245,7 @@ class TideTiming(_Strict):
     max_offset: float = 3 * 3600.0
 
     _d = field_validator("clock_error_threshold", "max_offset", mode="before")(classmethod(
-        lambda cls, v: v if isinstance(v, float) else _duration(v)))
+        lambda cls, v: _seconds_or_duration(v)))
 
 
 class RuleSetInfo(_Strict):
@@ -295,7 +306,7 @@ class RuleSet:
 
 def _validate_variable(path: Path, where: str, name: str, body: dict) -> VariableRules:
     if name not in VARIABLE_UNITS:
-        raise ConfigError(f"{path}: key {where}: unknown variable {name!r}; "
+        raise ConfigError(f"{path}: key {where}: unknown variable {shown(repr(name))}; "
                           f"use one of {', '.join(sorted(VARIABLE_UNITS))}")
     try:
         rules = validate(VariableRules, body, path)
@@ -303,7 +314,7 @@ def _validate_variable(path: Path, where: str, name: str, body: dict) -> Variabl
         raise ConfigError(str(err).replace(f"{path}: key ", f"{path}: key {where}.", 1)) from None
     if rules.units != VARIABLE_UNITS[name]:
         raise ConfigError(f"{path}: key {where}.units: thresholds for {name} must be in "
-                          f"{VARIABLE_UNITS[name]!r}, got {rules.units!r}; convert them and set units = "
+                          f"{VARIABLE_UNITS[name]!r}, got {shown(repr(rules.units))}; convert them and set units = "
                           f"\"{VARIABLE_UNITS[name]}\"")
     return rules
 
@@ -315,22 +326,28 @@ def load_rules(path: str | Path) -> RuleSet:
     top = validate(_RuleFile, data, path)
     effective, raw = {}, {}
     for var, body in top.variable.items():
-        effective[(None, var)] = _validate_variable(path, f"variable.{var}", var, body)
+        effective[(None, var)] = _validate_variable(path, f"variable.{shown_key(var)}", var, body)
         raw[(None, var)] = body
     for st, stbody in top.station.items():
         try:
             check_safe_id(st, "station id")
         except ValueError as err:
-            raise ConfigError(f"{path}: key station.{st}: {err}") from None
+            raise ConfigError(f"{path}: key station.{shown_key(st)}: {shown(err)}; use the station's id "
+                              "from the register") from None
         extra = set(stbody) - {"variable"}
         if extra:
-            raise ConfigError(f"{path}: key station.{st}: unknown key(s) {sorted(extra)}; only 'variable' tables go here")
-        for var, body in stbody.get("variable", {}).items():
+            raise ConfigError(f"{path}: key station.{st}: unknown key(s) {shown(sorted(extra))}; only 'variable' "
+                              "tables go here")
+        variables = stbody.get("variable", {})
+        if not isinstance(variables, dict) or not all(isinstance(b, dict) for b in variables.values()):
+            raise ConfigError(f"{path}: key station.{st}.variable: must be tables of rules per variable; "
+                              f"write [station.{st}.variable.<variable>] tables")
+        for var, body in variables.items():
             merged = _merge(top.variable.get(var, {}), body)
-            effective[(st, var)] = _validate_variable(path, f"station.{st}.variable.{var}", var, merged)
+            effective[(st, var)] = _validate_variable(path, f"station.{st}.variable.{shown_key(var)}", var, merged)
             raw[(st, var)] = merged
     for (st, var), rules in effective.items():
-        where = f"station.{st}.variable.{var}" if st else f"variable.{var}"
+        where = f"station.{st}.variable.{shown_key(var)}" if st else f"variable.{shown_key(var)}"
         for key, allowed in (("immersion_consistency", {"wetness"}), ("tide_residual", {"water_level"}),
                              ("immersion_gating", {"ph", "conductivity"})):
             if getattr(rules, key) is not None and var not in allowed:

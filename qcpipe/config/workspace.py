@@ -100,6 +100,12 @@ def load_workspace(path: str | Path) -> Workspace:
     model = validate(_WorkspaceFile, data, path)
     base = path.parent
     p = model.paths
+    for key in ("register_file", "layouts", "rules", "inbox", "archive", "annotations"):
+        value = getattr(p, key)
+        if value is not None and any(ord(c) < 32 for c in value):
+            from ..errors import ConfigError
+            name = "register" if key == "register_file" else key
+            raise ConfigError(f"{path}: key paths.{name}: contains a control character; write a plain path")
     return Workspace(path, (base / p.register_file).resolve(), (base / p.layouts).resolve(),
                      (base / p.rules).resolve(), (base / p.inbox).resolve(), (base / p.archive).resolve(),
                      (base / p.annotations).resolve() if p.annotations else None, model.archive.keep_versions)

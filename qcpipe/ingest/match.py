@@ -14,7 +14,7 @@ from ..config.layouts import LoadedLayouts
 from ..config.register import Deployment, LoadedRegister
 from ..errors import MatchError, ParseError, QcpipeError
 from .discover import RawFile
-from .readers import RawTable, read_raw_file
+from .readers import RawTable, read_raw_file, shown_name
 from .timebase import drift_corrected, utc_from_logger_time, window_mask
 
 
@@ -30,7 +30,7 @@ class IngestedFile:
     kind: str
     station: str
     deployment: str
-    time: np.ndarray                      # UTC, drift-corrected, inside the deployment window
+    time: np.ndarray                      # UTC, drift-corrected, inside the deployment window, in time order
     values: dict[str, np.ndarray]         # raw units
     units: dict[str, str]
     counts: dict[str, int] = field(default_factory=dict)
@@ -56,18 +56,24 @@ def _naive_utc(t) -> np.datetime64:
 
 
 def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
-    candidates = [(name, lay) for name, lay in layouts.layouts.items() if lay.reads(raw.name)]
+    name = shown_name(raw.name)
+    candidates = [(n, lay) for n, lay in layouts.layouts.items() if lay.reads(raw.name)]
     if not candidates:
         globs = ", ".join(f"{n}: {lay.file_glob!r}" for n, lay in layouts.layouts.items())
-        raise FileRejected(f"{raw.name}: no logger layout reads this file name ({globs}); "
+        raise FileRejected(f"{name}: no logger layout reads this file name ({globs}); "
                            "rename the file or add a layout")
     errors = []
-    for name, lay in candidates:
+    for lay_name, lay in candidates:
         try:
-            return read_raw_file(raw.path, lay, name)
+            return read_raw_file(raw.path, lay, lay_name)
         except ParseError as err:
-            errors.append(f"[{name}] {err}" if len(candidates) > 1 else str(err))
-    raise FileRejected("; ".join(errors))
+            errors.append(str(err))
+    if len(errors) == 1:
+        raise FileRejected(errors[0])
+    # several layouts read this name: one line, starting with the file name, ending with what to do
+    tried = " | ".join(f"[{n}] {e.removeprefix(f'{name}: ')}" for (n, _), e in zip(candidates, errors))
+    raise FileRejected(f"{name}: none of the {len(candidates)} layouts whose file_glob matches could read it "
+                       f"({tried}); check the file or make the layouts' file_glob patterns disjoint")
 
 
 def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) -> IngestedFile:
@@ -77,16 +83,17 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) 
     to do) when the file cannot be read or matches no deployment.
     """
     table = _read_with_layouts(raw, layouts)
+    name = shown_name(raw.name)
     inst = register.instrument_by_serial(table.serial)
     if inst is None:
-        raise FileRejected(f"{raw.name}: serial {table.serial!r} is not in the station register "
+        raise FileRejected(f"{name}: serial {table.serial!r} is not in the station register "
                            f"{register.path.name}; add an [[instrument]] and [[deployment]] for it")
     if inst.layout != table.layout_name:
-        raise FileRejected(f"{raw.name}: read with layout {table.layout_name!r} but instrument {inst.serial!r} "
+        raise FileRejected(f"{name}: read with layout {table.layout_name!r} but instrument {inst.serial!r} "
                            f"uses layout {inst.layout!r}; check the file's origin or the register")
     deps = register.deployments_of(inst.serial)
     if not deps:
-        raise FileRejected(f"{raw.name}: instrument {inst.serial!r} has no [[deployment]] in "
+        raise FileRejected(f"{name}: instrument {inst.serial!r} has no [[deployment]] in "
                            f"{register.path.name}; add one with station, start and end")
     best = None
     for dep in deps:
@@ -98,7 +105,7 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) 
     n_in, dep, t, inside, err = best
     if n_in == 0:
         lo, hi = (np.datetime_as_string(x, unit="m") for x in (t.min(), t.max()))
-        raise FileRejected(f"{raw.name}: its records ({lo} to {hi} UTC) fall in no deployment of instrument "
+        raise FileRejected(f"{name}: its records ({lo} to {hi} UTC) fall in no deployment of instrument "
                            f"{inst.serial!r}; check the deployment dates and clock_offset in the register")
     start, end = _naive_utc(dep.start), _naive_utc(dep.end)
     counts = dict(table.counts)
@@ -106,9 +113,15 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) 
     counts["pre_deployment"] = int(np.count_nonzero(t < start))
     counts["post_recovery"] = int(np.count_nonzero(t > end))
     counts["in_deployment"] = n_in
+    # records in time order (stable: repeated times keep the file's order for the merge)
+    keep = np.flatnonzero(inside)
+    ti = t[keep].astype(np.int64)
+    counts["out_of_order"] = int(np.count_nonzero(np.diff(ti) < 0))
+    if counts["out_of_order"]:
+        keep = keep[np.argsort(ti, kind="stable")]
     return IngestedFile(raw=raw, layout=table.layout_name, serial=inst.serial, kind=inst.kind,
-                        station=dep.station, deployment=dep.id, time=t[inside],
-                        values={k: v[inside] for k, v in table.values.items()}, units=table.units,
+                        station=dep.station, deployment=dep.id, time=t[keep],
+                        values={k: v[keep] for k, v in table.values.items()}, units=table.units,
                         counts=counts, clock_correction_s=err)
 
 

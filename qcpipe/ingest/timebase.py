@@ -43,8 +43,17 @@ def drift_corrected(t_utc, *, clock_set, check_logger, check_reference) -> np.nd
     if span <= 0:
         raise ValueError("clock check must be after the time the clock was set")
     err = float(tl - tr)
-    corr = np.rint((t - t0).astype(np.float64) * (err / span)).astype(np.int64)
-    return (t - corr).astype("datetime64[ns]")
+    with np.errstate(over="ignore"):
+        d = t - t0                                   # exact, but wraps more than 292 years from clock_set
+    approx = t.astype(np.float64) - float(t0)
+    d = np.where(np.abs(approx) < 9.0e18, d.astype(np.float64), approx)
+    corr = np.rint(d * (err / span))
+    # saturate instead of wrapping round: such samples are centuries outside any deployment
+    lo, hi = np.iinfo(np.int64).min + 1, np.iinfo(np.int64).max
+    out = t.astype(np.float64) - corr
+    safe = (out > -9.2e18) & (out < 9.2e18)
+    res = np.where(safe, t - np.where(safe, corr, 0).astype(np.int64), np.where(out < 0, lo, hi))
+    return res.astype("datetime64[ns]")
 
 
 def window_mask(times, *, start, end) -> np.ndarray:
