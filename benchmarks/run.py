@@ -454,13 +454,55 @@ def case_tide() -> dict:
             "cpu_s": dict(zip(("predict", "cos"), cpu))}
 
 
+CHUNKED_SAMPLES = 31_536_000          # one year at 1 Hz
+TARGET_CHUNKED_MB = 2048.0
+
+
+def case_chunked() -> dict:
+    """One variable, a year at 1 Hz, written to NetCDF in blocks, then QC'd chunk by chunk (qcpipe.chunked)."""
+    import netCDF4
+
+    from qcpipe.chunked import qc_netcdf_chunked
+    from qcpipe.config.rules import VariableRules
+
+    rules = VariableRules.model_validate({
+        "units": "degC",
+        "gross_range": {"sensor_min": -5, "sensor_max": 40, "expected_min": 0, "expected_max": 30},
+        "spike": {"half_window": "2 min", "suspect": 1.0, "fail": 3.0},
+        "rate_of_change": {"window": "30 min", "n_sigma": 4.0},
+        "flat_line": {"tolerance": 0.0, "suspect_after": "30 min", "fail_after": "2 h"},
+        "gap": {"max_gap": "10 s"},
+    })
+    rng = np.random.default_rng(7)
+    with tempfile.TemporaryDirectory() as tmp:
+        src = Path(tmp) / "long.nc"
+        nc = netCDF4.Dataset(src, "w")
+        nc.createDimension("time", None)
+        tv = nc.createVariable("time", "f8", ("time",), chunksizes=(1 << 18,))
+        tv.units = "seconds since 1970-01-01T00:00:00Z"
+        vv = nc.createVariable("temperature", "f8", ("time",), zlib=True, complevel=1, chunksizes=(1 << 18,))
+        t0 = np.datetime64("2027-01-01T00:00:00", "s").astype(np.int64)
+        block = 2_000_000
+        for a in range(0, CHUNKED_SAMPLES, block):
+            n = min(block, CHUNKED_SAMPLES - a)
+            tv[a:a + n] = t0 + np.arange(a, a + n, dtype=np.float64)
+            vv[a:a + n] = 12 + 3 * np.sin(np.arange(a, a + n) * 2 * np.pi / 86400) + rng.normal(0, 0.05, n)
+        nc.close()
+        write_rss = process_usage()["peak_rss_mb"]
+        start = time.perf_counter()
+        counts = qc_netcdf_chunked(src, "temperature", rules, Path(tmp) / "flags.nc", block=block)
+        qc_s = time.perf_counter() - start
+    return {"samples": CHUNKED_SAMPLES, "qc_s": qc_s, "rss_after_writing_mb": write_rss,
+            "flag_counts": {k: {str(a): b for a, b in v.items()} for k, v in counts.items()}}
+
+
 def run_case(name: str, pandas_samples: int) -> dict:
     if name.startswith("qc:"):
         return case_qc(name[3:])
     if name.startswith("pandas:"):
         return case_pandas(name[7:], pandas_samples)
     return {"agreement": case_agreement, "window": case_window, "length": case_length,
-            "ingest": case_ingest, "tide": case_tide}[name]()
+            "ingest": case_ingest, "tide": case_tide, "chunked": case_chunked}[name]()
 
 
 # ----------------------------------------------------------------------- parent: run, judge, print
@@ -556,6 +598,14 @@ def main_parent(pandas_samples: int) -> int:
     rows.append(_row("predict_tide, one year at 1 min, 37 constituents", _fmt_s(td["predict_s"]),
                      f"well under {TARGET_TIDE_SECONDS:g} s", td["predict_s"] < TARGET_TIDE_SECONDS,
                      td["peak_rss_mb"], seconds=td["predict_s"]))
+
+    print("  running chunked ...", file=sys.stderr, flush=True)
+    ch = raw["chunked"] = child("chunked", pandas_samples)
+    rows.append(_row(f"chunked QC, one variable, one year at 1 Hz ({ch['samples']:,} samples, NetCDF in and out)",
+                     f"peak {ch['peak_rss_mb']:.0f} MB in {_fmt_s(ch['qc_s'])} (memory is set by the block, "
+                     "not the length: 10 years take 10x the time in the same memory)",
+                     f"<= {TARGET_CHUNKED_MB:g} MB", ch["peak_rss_mb"] <= TARGET_CHUNKED_MB, ch["peak_rss_mb"],
+                     seconds=ch["qc_s"]))
 
     total = time.perf_counter() - wall_start
     cpu_shares = {name: (r["user_cpu_s"] + r["system_cpu_s"]) / r["case_wall_s"] for name, r in raw.items()}
