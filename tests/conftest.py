@@ -44,7 +44,7 @@ def _hashes(folder: Path) -> dict:
 def _listing(archive: Path) -> dict:
     return {str(p.relative_to(archive)): p.stat().st_mtime_ns for p in sorted(archive.rglob("*"))
             if p.is_file() and ".prefect" not in p.parts and p.name != "catalog.sqlite"
-            and not p.name.startswith("catalog.sqlite")}
+            and not p.name.startswith("catalog.sqlite") and p.name != ".lock"}
 
 
 def run_cli(*args, cwd=None, env=None):
