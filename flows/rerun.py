@@ -3,7 +3,10 @@
 By default it re-processes exactly the deployments whose inputs changed (rules,
 register, layouts, annotations, harmonic constants: compared by content hash
 with what made their latest dataset) and their dependents; given deployment ids
-it re-QCs those (and their dependents) whatever the hashes say.
+it re-QCs those (and their dependents) whatever the hashes say.  Tasks run on
+Prefect's default thread runner, or on the workers of a Dask cluster:
+``rerun_flow_for(address)(workspace, deployments, dask_address=address)``
+(see ``flows/runners.py``).
 """
 
 from __future__ import annotations
@@ -12,12 +15,30 @@ from prefect import flow
 
 from qcpipe import pipeline
 
+from .runners import flow_for, runs_on
 from .tasks import refresh_inputs, run_plan
 
 
 @flow(name="qcpipe-rerun", log_prints=False)
-def rerun(workspace: str, deployments: list[str] | None = None) -> pipeline.RunSummary:
-    """Re-QC what changed (or the given deployments) from the archive's stored data."""
+def rerun(workspace: str, deployments: list[str] | None = None,
+          dask_address: str | None = None) -> pipeline.RunSummary:
+    """Re-QC what changed (or the given deployments) from the archive's stored data.
+
+    ``dask_address``: run the tasks on the Dask cluster with this scheduler
+    address; called on a flow with another runner, the run continues as a
+    sub-flow that has the Dask runner.
+    """
+    if not runs_on(dask_address):
+        return rerun_flow_for(dask_address)(workspace, deployments, dask_address=dask_address)
+    return _rerun(workspace, deployments)
+
+
+def rerun_flow_for(dask_address: str | None = None):
+    """The re-run flow with its tasks on the Dask cluster at ``dask_address`` (None: the default runner)."""
+    return flow_for(rerun, dask_address)
+
+
+def _rerun(workspace: str, deployments: list[str] | None) -> pipeline.RunSummary:
     ctx = pipeline.load_context(workspace)
     run_id = ctx.catalog.start_run("rerun")
     summary = pipeline.RunSummary(archive=str(ctx.paths.root))

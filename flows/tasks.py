@@ -1,59 +1,103 @@
-"""Prefect tasks shared by the nightly and re-run flows; each calls one pipeline function."""
+"""Prefect tasks shared by the nightly and re-run flows; each calls one pipeline function.
+
+Tasks may run in another process (a Dask worker, see ``flows/runners.py``), so
+their arguments are things that pickle and stay small: the workspace path, ids,
+raw-file records, ingested files (arrays of one download) and a site's tidal
+context.  The loaded configuration (``pipeline.Context``) is not sent: its
+register does not survive unpickling, and every task can load it again from the
+workspace in a few milliseconds.  The flow sends the fingerprint of the
+configuration it planned with, and a task that loads another one (a file was
+edited during the run) stops with a ConfigError instead of mixing the two.
+"""
 
 from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass
 
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from qcpipe import pipeline
+from qcpipe.errors import ConfigError
+
+
+def context_fingerprint(ctx: pipeline.Context) -> str:
+    """SHA-256 over the content hashes of everything a run was planned with."""
+    parts = {"workspace": str(ctx.workspace_path), "archive": str(ctx.paths.root), "inbox": str(ctx.inbox),
+             "register": ctx.register.sha256, "layouts": ctx.layouts.sha256, "rules": ctx.rules.sha256,
+             "annotations": [a.as_dict() for a in ctx.annotations.items], "keep_versions": ctx.keep_versions}
+    return hashlib.sha256(json.dumps(parts, sort_keys=True).encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class Job:
+    """What a task needs to rebuild its run's context: the workspace path and the configuration's fingerprint."""
+    workspace: str
+    fingerprint: str
+
+    @classmethod
+    def of(cls, ctx: pipeline.Context) -> "Job":
+        return cls(str(ctx.workspace_path), context_fingerprint(ctx))
+
+    def context(self) -> pipeline.Context:
+        """The run's context, loaded again here (ConfigError if the configuration changed since planning)."""
+        ctx = pipeline.load_context(self.workspace)
+        if context_fingerprint(ctx) != self.fingerprint:
+            raise ConfigError(f"{self.workspace}: the workspace's configuration (register, layouts, rules, "
+                              "annotations) changed while the run was going on; run it again")
+        return ctx
 
 
 @task(name="read-raw-file", cache_policy=NO_CACHE)
-def read_raw_file(raw, register, layouts) -> pipeline.FileOutcome:
+def read_raw_file(job: Job, raw) -> pipeline.FileOutcome:
     """Read, match and time-correct one raw file (rejections come back with a reason)."""
-    return pipeline.read_one_file(raw, register, layouts)
+    ctx = job.context()
+    return pipeline.read_one_file(raw, ctx.register, ctx.layouts)
 
 
 @task(name="quarantine-file", cache_policy=NO_CACHE, retries=2, retry_delay_seconds=1)
-def quarantine(ctx, outcome) -> str:
+def quarantine(job: Job, outcome) -> str:
     """Copy a rejected file and its reason to quarantine."""
-    return str(pipeline.quarantine_file(ctx, outcome))
+    return str(pipeline.quarantine_file(job.context(), outcome))
 
 
 @task(name="merge-deployment", cache_policy=NO_CACHE)
-def merge_deployment(ctx, deployment_id, files) -> str:
+def merge_deployment(job: Job, deployment_id, files) -> str:
     """Merge a deployment's new files into its pre-QC store."""
-    pipeline.merge_new_files(ctx, deployment_id, files)
+    pipeline.merge_new_files(job.context(), deployment_id, files)
     return deployment_id
 
 
 @task(name="reread-deployment", cache_policy=NO_CACHE)
-def reread_deployment(ctx, deployment_id) -> list:
+def reread_deployment(job: Job, deployment_id) -> list:
     """Rebuild a deployment's pre-QC store from its archived raw files (register or layout changed)."""
-    return pipeline.rebuild_store(ctx, deployment_id)[1]
+    return pipeline.rebuild_store(job.context(), deployment_id)[1]
 
 
 @task(name="qc-gauge", cache_policy=NO_CACHE)
-def qc_gauge(ctx, deployment_id, files, tide) -> pipeline.DeploymentResult:
+def qc_gauge(job: Job, deployment_id, files, tide) -> pipeline.DeploymentResult:
     """QC a water-level gauge deployment and write its dataset and tide products."""
-    return pipeline.qc_deployment(ctx, deployment_id, new_files=files, tide=tide)
+    return pipeline.qc_deployment(job.context(), deployment_id, new_files=files, tide=tide)
 
 
 @task(name="qc-station", cache_policy=NO_CACHE)
-def qc_station(ctx, station_id, deployment_ids, files, tide) -> list:
+def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     """QC one station's deployments (probe first) and write its exposure products."""
-    return pipeline.qc_station(ctx, station_id, deployment_ids, files, tide)
+    return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide)
 
 
 def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary) -> None:
     """Submit the plan's QC tasks in dependency order: gauges, then stations in parallel."""
+    job = Job.of(ctx)
     site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
     tides = {site: pipeline.site_tide(ctx, site) for site in plan.sites}
-    for fut in [qc_gauge.submit(ctx, d, by_dep.get(d, []), tides[site_of[d]]) for d in plan.gauges]:
+    for fut in [qc_gauge.submit(job, d, by_dep.get(d, []), tides[site_of[d]]) for d in plan.gauges]:
         summary.results.append(fut.result())
     if plan.gauges:
         tides = {site: pipeline.site_tide(ctx, site) for site in plan.sites}   # with the new gauge record
-    futures = [qc_station.submit(ctx, st, deps, {d: by_dep.get(d, []) for d in deps}, tides[site_of[deps[0]]])
+    futures = [qc_station.submit(job, st, deps, {d: by_dep.get(d, []) for d in deps}, tides[site_of[deps[0]]])
                for st, deps in plan.stations.items()]
     for fut in futures:
         summary.results.extend(fut.result())
@@ -61,8 +105,9 @@ def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSumm
 
 def refresh_inputs(ctx, summary: pipeline.RunSummary, exclude=()) -> set[str]:
     """Rebuild stores whose ingest inputs changed and find deployments whose QC inputs changed."""
+    job = Job.of(ctx)
     changed = pipeline.changed_ingest(ctx)
-    for fut in [reread_deployment.submit(ctx, d) for d in changed]:
+    for fut in [reread_deployment.submit(job, d) for d in changed]:
         for notice in fut.result():
             summary.notices.append(notice)
     for d in changed:

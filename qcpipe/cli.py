@@ -35,6 +35,8 @@ def _parser() -> argparse.ArgumentParser:
 
     sp = sub.add_parser("process", help="process new files in the inbox once (runs the nightly flow)")
     ws(sp)
+    sp.add_argument("--dask", metavar="ADDRESS", help="spread the work over this Dask cluster "
+                    "(e.g. tcp://127.0.0.1:8786; needs PREFECT_API_URL of a running Prefect server)")
     sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome")
     sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
 
@@ -50,6 +52,7 @@ def _parser() -> argparse.ArgumentParser:
     sp = sub.add_parser("rerun", help="re-QC from stored data what changed, or the given deployments")
     ws(sp)
     sp.add_argument("-d", "--deployment", action="append", help="re-QC this deployment (repeatable)")
+    sp.add_argument("--dask", metavar="ADDRESS", help="spread the work over this Dask cluster (needs PREFECT_API_URL)")
     sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome")
     sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
 
@@ -133,21 +136,25 @@ def _print_summary(summary, quiet: bool) -> None:
 
 def _process(args) -> int:
     ws = _prepare_flow(args)
-    from .flows.nightly import nightly
+    from .flows.nightly import nightly_flow_for
 
+    flow = nightly_flow_for(args.dask)
     if not args.quiet:
-        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} (Prefect, local mode)", flush=True)
-    _print_summary(_run_with_progress(args, nightly, str(ws.path)), args.quiet)
+        where = f"Dask cluster {args.dask}" if args.dask else "Prefect, local mode"
+        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} ({where})", flush=True)
+    _print_summary(_run_with_progress(args, flow, str(ws.path), args.dask), args.quiet)
     return 0
 
 
 def _rerun(args) -> int:
     ws = _prepare_flow(args)
-    from .flows.rerun import rerun
+    from .flows.rerun import rerun_flow_for
 
+    flow = rerun_flow_for(args.dask)
     if not args.quiet:
-        print(f"qcpipe: re-running QC in archive {ws.archive} (Prefect, local mode)", flush=True)
-    _print_summary(_run_with_progress(args, rerun, str(ws.path), args.deployment or None), args.quiet)
+        where = f"Dask cluster {args.dask}" if args.dask else "Prefect, local mode"
+        print(f"qcpipe: re-running QC in archive {ws.archive} ({where})", flush=True)
+    _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask), args.quiet)
     return 0
 
 
