@@ -88,6 +88,33 @@ def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide)
 
 
+@task(name="write-run-report", cache_policy=NO_CACHE)
+def write_report(job: Job, run_id: int, summary: pipeline.RunSummary) -> str:
+    """Write the run's HTML report into the archive and publish its Prefect artifacts."""
+    from qcpipe.report import publish_artifacts, run_diff, run_from_summary, write_run_report
+
+    ctx = job.context()
+    row = next(r for r in ctx.catalog.runs() if r["id"] == run_id)
+    run = run_from_summary(summary, run_id=run_id, started=row["started"], ended=row["ended"],
+                           outcome=row["outcome"])
+    run["kind"] = row.get("kind")
+    run["diff"] = run_diff(ctx.paths.root, run)
+    report = write_run_report(ctx.paths.root, run)
+    publish_artifacts(run, report)
+    return str(report)
+
+
+def report_run(job: Job, run_id: int, summary: pipeline.RunSummary) -> None:
+    """The report of a run that changed something; a failure to write it is a notice, not a failed run
+    (the data are already committed)."""
+    if summary.nothing_new:
+        return
+    try:
+        summary.report = write_report(job, run_id, summary)
+    except Exception as err:  # noqa: BLE001 - the run's data are safe; say what went wrong
+        summary.notices.append(f"the run's report was not written: {type(err).__name__}: {err}")
+
+
 def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary) -> None:
     """Submit the plan's QC tasks in dependency order: gauges, then stations in parallel."""
     job = Job.of(ctx)

@@ -121,6 +121,8 @@ def _run_with_progress(args, fn, *a):
 def _print_summary(summary, quiet: bool) -> None:
     lines = summary.lines()
     print("\n".join(lines[:1] if quiet else lines))
+    if summary.report and not quiet:
+        print(f"report: {summary.report}")
     if not quiet and summary.results and sys.stdout.isatty():
         from rich.console import Console
         from rich.table import Table

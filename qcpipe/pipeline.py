@@ -607,6 +607,7 @@ class RunSummary:
 
     reruns: dict = field(default_factory=dict)          # deployment -> why it was re-QC'd
     notices: list = field(default_factory=list)          # run-level notices (not of one deployment)
+    report: str = ""                                     # path of the run's HTML report
 
     @property
     def nothing_new(self) -> bool:

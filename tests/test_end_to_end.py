@@ -389,3 +389,14 @@ def test_daily_exposure_consistent_with_emersion_periods(demo_run):
     assert total_daily == pytest.approx(total_periods, rel=1e-6)
     # the high-shore station is emersed for most of each day (2.4 m above datum, mean level 2.0 m)
     assert 10 < total_daily / len(daily) < 20
+
+
+def test_run_writes_a_report_and_says_where(demo_run):
+    line = [ln for ln in demo_run.first.stdout.splitlines() if ln.startswith("report: ")]
+    assert len(line) == 1
+    from pathlib import Path
+    index = Path(line[0].split(": ", 1)[1])
+    assert index.is_file() and index.name == "index.html"
+    html = index.read_text()
+    assert "Needs attention" in html and "kc-mid" in html
+    assert "report: " not in demo_run.second.stdout          # nothing new, no report
