@@ -59,7 +59,7 @@ def _nightly(workspace: str) -> pipeline.RunSummary:
         for fut in [merge_deployment.submit(job, d, files) for d, files in by_dep.items()]:
             fut.result()
         touched = set(by_dep) | refresh_inputs(ctx, summary, exclude=set(by_dep))
-        run_plan(ctx, pipeline.plan_qc(ctx, touched), by_dep, summary)
+        run_plan(ctx, pipeline.plan_qc(ctx, touched), by_dep, summary, run_id)
         summary.ingested = sum(len(files) for files in by_dep.values())
         outcome = "nothing new" if summary.nothing_new else "completed"
     finally:

@@ -50,7 +50,7 @@ def _rerun(workspace: str, deployments: list[str] | None) -> pipeline.RunSummary
             for d in deployments:
                 summary.reruns.setdefault(d, []).append("asked for")
             touched |= set(deployments)
-        run_plan(ctx, pipeline.plan_qc(ctx, touched), {}, summary)
+        run_plan(ctx, pipeline.plan_qc(ctx, touched), {}, summary, run_id)
         outcome = "nothing new" if summary.nothing_new else "completed"
     finally:
         ctx.catalog.end_run(run_id, outcome, summary.as_counts())

@@ -20,7 +20,32 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from qcpipe import pipeline
-from qcpipe.errors import ConfigError
+from qcpipe.errors import ConfigError, is_transient
+
+#: Attempts after the first for a task that met a transient I/O error, and the waits between them (s).
+RETRIES = 3
+RETRY_DELAYS_S = [1, 3, 9]
+
+
+def transient_only(task, task_run, state) -> bool:
+    """Prefect retry condition: try again only after a passing I/O failure (:func:`qcpipe.errors.is_transient`).
+
+    Bad input, bad configuration, a full disk or a busy archive fail the same
+    way every time, so they end the task at once."""
+    exc = state.data if isinstance(state.data, BaseException) else None
+    if exc is None:
+        try:
+            state.result(raise_on_failure=True)
+        except BaseException as err:  # noqa: BLE001 - we only classify it
+            exc = err
+    return exc is not None and is_transient(exc)
+
+
+def retrying_task(name: str):
+    """A Prefect task that retries transient I/O errors a bounded number of times (every task here is
+    safe to repeat: writes are atomic, merges idempotent, QC skips what its run already committed)."""
+    return task(name=name, cache_policy=NO_CACHE, retries=RETRIES, retry_delay_seconds=RETRY_DELAYS_S,
+                retry_condition_fn=transient_only)
 
 
 def context_fingerprint(ctx: pipeline.Context) -> str:
@@ -36,10 +61,11 @@ class Job:
     """What a task needs to rebuild its run's context: the workspace path and the configuration's fingerprint."""
     workspace: str
     fingerprint: str
+    run_id: int | None = None
 
     @classmethod
-    def of(cls, ctx: pipeline.Context) -> "Job":
-        return cls(str(ctx.workspace_path), context_fingerprint(ctx))
+    def of(cls, ctx: pipeline.Context, run_id: int | None = None) -> "Job":
+        return cls(str(ctx.workspace_path), context_fingerprint(ctx), run_id)
 
     def context(self) -> pipeline.Context:
         """The run's context, loaded again here (ConfigError if the configuration changed since planning)."""
@@ -50,45 +76,45 @@ class Job:
         return ctx
 
 
-@task(name="read-raw-file", cache_policy=NO_CACHE)
+@retrying_task("read-raw-file")
 def read_raw_file(job: Job, raw) -> pipeline.FileOutcome:
     """Read, match and time-correct one raw file (rejections come back with a reason)."""
     ctx = job.context()
     return pipeline.read_one_file(raw, ctx.register, ctx.layouts)
 
 
-@task(name="quarantine-file", cache_policy=NO_CACHE, retries=2, retry_delay_seconds=1)
+@retrying_task("quarantine-file")
 def quarantine(job: Job, outcome) -> str:
     """Copy a rejected file and its reason to quarantine."""
     return str(pipeline.quarantine_file(job.context(), outcome))
 
 
-@task(name="merge-deployment", cache_policy=NO_CACHE)
+@retrying_task("merge-deployment")
 def merge_deployment(job: Job, deployment_id, files) -> str:
     """Merge a deployment's new files into its pre-QC store."""
     pipeline.merge_new_files(job.context(), deployment_id, files)
     return deployment_id
 
 
-@task(name="reread-deployment", cache_policy=NO_CACHE)
+@retrying_task("reread-deployment")
 def reread_deployment(job: Job, deployment_id) -> list:
     """Rebuild a deployment's pre-QC store from its archived raw files (register or layout changed)."""
     return pipeline.rebuild_store(job.context(), deployment_id)[1]
 
 
-@task(name="qc-gauge", cache_policy=NO_CACHE)
+@retrying_task("qc-gauge")
 def qc_gauge(job: Job, deployment_id, files, tide) -> pipeline.DeploymentResult:
     """QC a water-level gauge deployment and write its dataset and tide products."""
-    return pipeline.qc_deployment(job.context(), deployment_id, new_files=files, tide=tide)
+    return pipeline.qc_deployment(job.context(), deployment_id, new_files=files, tide=tide, run_id=job.run_id)
 
 
-@task(name="qc-station", cache_policy=NO_CACHE)
+@retrying_task("qc-station")
 def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     """QC one station's deployments (probe first) and write its exposure products."""
-    return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide)
+    return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide, run_id=job.run_id)
 
 
-@task(name="write-run-report", cache_policy=NO_CACHE)
+@retrying_task("write-run-report")
 def write_report(job: Job, run_id: int, summary: pipeline.RunSummary) -> str:
     """Write the run's HTML report into the archive and publish its Prefect artifacts."""
     from qcpipe.report import publish_artifacts, run_diff, run_from_summary, write_run_report
@@ -115,9 +141,10 @@ def report_run(job: Job, run_id: int, summary: pipeline.RunSummary) -> None:
         summary.notices.append(f"the run's report was not written: {type(err).__name__}: {err}")
 
 
-def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary) -> None:
+def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary,
+             run_id: int | None = None) -> None:
     """Submit the plan's QC tasks in dependency order: gauges, then stations in parallel."""
-    job = Job.of(ctx)
+    job = Job.of(ctx, run_id)
     site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
     tides = {site: pipeline.site_tide(ctx, site) for site in plan.sites}
     for fut in [qc_gauge.submit(job, d, by_dep.get(d, []), tides[site_of[d]]) for d in plan.gauges]:

@@ -17,9 +17,10 @@ from __future__ import annotations
 
 import argparse
 import sys
+import sqlite3
 from pathlib import Path
 
-from .errors import QcpipeError
+from .errors import QcpipeError, is_transient
 
 DEFAULT_WORKSPACE = "qcpipe-workspace.toml"
 
@@ -103,6 +104,10 @@ def _prepare_flow(args):
         # qcpipe prints the outcome itself (one line for an expected failure); the orchestrator's
         # own record of a failed run, with its traceback, stays in its database
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
+    # one run at a time: take the archive's lock before the orchestrator starts (held until exit)
+    from .archive.lock import ArchiveLock
+
+    ArchiveLock(ws.archive).__enter__()
     configure_prefect(ws.archive / ".prefect")
     return ws
 
@@ -346,6 +351,14 @@ def main(argv: list[str] | None = None) -> int:
         return handler(args)
     except QcpipeError as err:
         print(f"qcpipe: error: {err}", file=sys.stderr)
+        return 2
+    except (OSError, sqlite3.OperationalError) as err:
+        if not is_transient(err):
+            raise                          # not an expected failure: keep the traceback for the bug report
+        where = f" ({err.filename})" if getattr(err, "filename", None) else ""
+        print(f"qcpipe: error: {getattr(err, 'strerror', None) or err}{where}, still failing after the tasks' "
+              "retries: check the archive's disk or network share and run again (only complete files were "
+              "kept; the next run finishes the work)", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("qcpipe: interrupted", file=sys.stderr)

@@ -241,15 +241,21 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
 
 
 def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedFile] = (),
-                  store: Store | None = None, tide=None) -> DeploymentResult:
+                  store: Store | None = None, tide=None, run_id: int | None = None) -> DeploymentResult:
     """Convert, QC and write a new dataset version of one deployment from its pre-QC store.
 
     ``new_files`` are the raw files merged in this run: their catalog rows are
     committed together with the dataset's, after the dataset is written.
     ``tide`` is the station's tidal context (:mod:`qcpipe.tidal`), or None.
+    ``run_id``: the catalog run doing this; if that run already committed a
+    version of the deployment (a task tried again after a passing I/O error),
+    that version is returned and nothing is written twice.
     """
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
+    done = _committed_by_run(ctx, dep.id, run_id, new_files)
+    if done is not None:
+        return done
     station = reg.station_by_id(dep.station)
     site = reg.site_by_id(station.site)
     store = store or load_store(ctx, deployment_id)
@@ -358,7 +364,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                            rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
                            software_version=__version__, created=now, samples=int(store.time.size),
                            flag_counts=fc, raw_sha256=store.sources, qc_key=key, qc_inputs=inputs,
-                           sha256=sha256_of_file(out_path))
+                           sha256=sha256_of_file(out_path), run_id=run_id)
     prune_versions(ctx, dep.id)
     run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
     if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
@@ -366,6 +372,22 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     progress.step("qc", f"{station.id}/{dep.id} v{version:03d}")
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
                             notices, products)
+
+
+def _committed_by_run(ctx: Context, deployment_id: str, run_id: int | None,
+                      new_files) -> DeploymentResult | None:
+    """The version ``run_id`` already committed for the deployment, as a result; None if it has not."""
+    if run_id is None:
+        return None
+    row = ctx.catalog.latest_dataset(deployment_id)
+    if row is None or row.get("run_id") != run_id:
+        return None
+    counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
+    fc = row["flag_counts"]
+    fc = json.loads(fc) if isinstance(fc, str) else fc
+    return DeploymentResult(row["station"], deployment_id, Path(row["path"]), row["version"], row["samples"], fc,
+                            counts, [f"{row['station']}/{deployment_id}: version {row['version']} was written by an "
+                                     "earlier attempt of this run (the task was tried again after an I/O error)"])
 
 
 def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
@@ -572,9 +594,10 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
 
 
 def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_files: dict[str, list],
-               tide: SiteTide | None) -> list[DeploymentResult]:
+               tide: SiteTide | None, run_id: int | None = None) -> list[DeploymentResult]:
     """QC the given deployments of one station in order (probe first), then its exposure products."""
-    results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide) for d in deployment_ids]
+    results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide, run_id=run_id)
+               for d in deployment_ids]
     station = ctx.register.station_by_id(station_id)
     written = derived.write_exposure_products(ctx, station)
     if written and results:

@@ -64,6 +64,10 @@ MIGRATIONS = [
     ALTER TABLE datasets ADD COLUMN pruned INTEGER NOT NULL DEFAULT 0;
     ALTER TABLE runs ADD COLUMN kind TEXT
     """,
+    # 3: the run that wrote each dataset version (a retried task skips what its run already committed)
+    """
+    ALTER TABLE datasets ADD COLUMN run_id INTEGER
+    """,
 ]
 
 

@@ -20,13 +20,25 @@ class ArchiveBusy(ArchiveError):
     """Another run holds the archive."""
 
 
+_HELD: dict[str, list] = {}       # lock path -> [fd, holders] for locks this process holds
+
+
 class ArchiveLock:
+    """Re-entrant within one process (the command takes it before the orchestrator starts, the
+    run takes it again), exclusive between processes."""
+
     def __init__(self, root: str | Path):
         self.path = Path(root) / ".lock"
         self.fd: int | None = None
 
     def acquire(self, wait_s: float = 0.0) -> "ArchiveLock":
+        key = str(self.path.resolve()) if self.path.parent.exists() else str(self.path)
+        if key in _HELD:
+            _HELD[key][1] += 1
+            self.fd, self._key = _HELD[key][0], key
+            return self
         self.path.parent.mkdir(parents=True, exist_ok=True)
+        key = str(self.path.resolve())
         fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
         deadline = time.monotonic() + max(wait_s, 0.0)
         while True:
@@ -44,10 +56,20 @@ class ArchiveLock:
         os.ftruncate(fd, 0)
         stamp = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
         os.pwrite(fd, f"pid {os.getpid()}, since {stamp}".encode(), 0)
-        self.fd = fd
+        self.fd, self._key = fd, key
+        _HELD[key] = [fd, 1]
         return self
 
     def release(self) -> None:
+        if self.fd is None:
+            return
+        entry = _HELD.get(self._key)
+        if entry is not None:
+            entry[1] -= 1
+            if entry[1] > 0:
+                self.fd = None
+                return
+            del _HELD[self._key]
         if self.fd is not None:
             try:
                 os.ftruncate(self.fd, 0)

@@ -106,10 +106,10 @@ def atomic_path(final: str | Path):
             yield tmp
             with open(tmp, "rb") as fh:
                 os.fsync(fh.fileno())
+            crash_point(f"before-rename {final.name}")
+            os.replace(tmp, final)
         except OSError as err:
             raise _archive_error(err, final) from None
-        crash_point(f"before-rename {final.name}")
-        os.replace(tmp, final)
     finally:
         if tmp.exists():
             tmp.unlink()

@@ -93,9 +93,57 @@ def window_bounds(
     # capping keeps t +/- window inside int64.
     cap = int(t[-1]) - int(t[0]) + 1
     before_ns, after_ns = min(before_ns, cap), min(after_ns, cap)
-    start = np.searchsorted(t, t - before_ns, side="left" if include_before else "right")
-    stop = np.searchsorted(t, t + after_ns, side="right" if include_after else "left")
+    if before_ns == 0:
+        start = _equal_run_edge(t, "left" if include_before else "right")
+    else:
+        start = sorted_search(t, t - before_ns, "left" if include_before else "right")
+    if after_ns == 0:
+        stop = _equal_run_edge(t, "right" if include_after else "left")
+    else:
+        stop = sorted_search(t, t + after_ns, "right" if include_after else "left")
     return start, stop
+
+
+_BLOCK = 8192
+
+
+def sorted_search(t: np.ndarray, keys: np.ndarray, side: str) -> np.ndarray:
+    """``numpy.searchsorted(t, keys, side)`` for sorted `keys`, block by block.
+
+    The answers for a block of consecutive sorted keys lie between the answers
+    for its first and last key, so each block is searched in that slice of `t`
+    only: the slice stays in cache, which is about a quarter faster on 10 M
+    samples than one search over the whole array (benchmarks/run.py).
+    """
+    n = keys.size
+    if n <= 8 * _BLOCK:
+        return np.searchsorted(t, keys, side=side)
+    out = np.empty(n, dtype=np.intp)
+    firsts = keys[::_BLOCK]
+    lasts = keys[np.minimum(np.arange(_BLOCK - 1, n + _BLOCK - 1, _BLOCK), n - 1)]
+    lo = np.searchsorted(t, firsts, side=side)
+    hi = np.searchsorted(t, lasts, side=side)
+    for b in range(firsts.size):
+        i0 = b * _BLOCK
+        seg = slice(lo[b], hi[b] + 1)
+        np.add(np.searchsorted(t[seg], keys[i0:i0 + _BLOCK], side=side), lo[b], out=out[i0:i0 + _BLOCK])
+    return out
+
+
+def _equal_run_edge(t: np.ndarray, side: str) -> np.ndarray:
+    """``numpy.searchsorted(t, t, side)`` in one pass: the first index of each sample's run of equal
+    times ("left") or one past its last ("right")."""
+    n = t.size
+    idx = np.arange(n, dtype=np.intp)
+    if side == "left":
+        new = np.empty(n, dtype=bool)
+        new[0] = True
+        np.not_equal(t[1:], t[:-1], out=new[1:])
+        return np.maximum.accumulate(np.where(new, idx, 0))
+    last = np.empty(n, dtype=bool)
+    last[-1] = True
+    np.not_equal(t[1:], t[:-1], out=last[:-1])
+    return np.minimum.accumulate(np.where(last, idx, n)[::-1])[::-1] + 1
 
 
 def reference_value(x: np.ndarray, ok: np.ndarray) -> float:

@@ -1,0 +1,39 @@
+"""The window helpers against numpy's own ``searchsorted`` (the reference: numpy documents
+``searchsorted(a, v, side)`` as the insertion indices that keep ``a`` sorted) on long
+series, so the block-by-block path (more than 65,536 samples) is exercised."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from qcpipe.checks._windows import _equal_run_edge, sorted_search, window_bounds
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_blockwise_search_equals_numpy(seed):
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(70_000, 400_000))
+    # irregular steps with repeated times and long gaps
+    steps = rng.choice([0, 1, 1, 1, 2, 5, 1000], size=n).astype(np.int64) * 1_000_000_000
+    t = np.cumsum(steps)
+    for w in (0, 1, 3_000_000_000, 600_000_000_000, 10**15):
+        for side in ("left", "right"):
+            np.testing.assert_array_equal(sorted_search(t, t - w, side), np.searchsorted(t, t - w, side))
+            np.testing.assert_array_equal(sorted_search(t, t + w, side), np.searchsorted(t, t + w, side))
+
+
+@pytest.mark.parametrize("side", ["left", "right"])
+def test_zero_width_edges_equal_numpy(side):
+    rng = np.random.default_rng(7)
+    t = np.sort(rng.integers(0, 50, 1000)).astype(np.int64)      # many repeated times
+    np.testing.assert_array_equal(_equal_run_edge(t, side), np.searchsorted(t, t, side))
+
+
+def test_window_bounds_with_zero_width_sides():
+    t = np.array([0, 0, 1, 1, 1, 3, 7, 7], dtype=np.int64)
+    for inc_b in (True, False):
+        for inc_a in (True, False):
+            start, stop = window_bounds(t, 0, 0, include_before=inc_b, include_after=inc_a)
+            np.testing.assert_array_equal(start, np.searchsorted(t, t, "left" if inc_b else "right"))
+            np.testing.assert_array_equal(stop, np.searchsorted(t, t, "right" if inc_a else "left"))
