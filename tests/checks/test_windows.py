@@ -37,3 +37,18 @@ def test_window_bounds_with_zero_width_sides():
             start, stop = window_bounds(t, 0, 0, include_before=inc_b, include_after=inc_a)
             np.testing.assert_array_equal(start, np.searchsorted(t, t, "left" if inc_b else "right"))
             np.testing.assert_array_equal(stop, np.searchsorted(t, t, "right" if inc_a else "left"))
+
+
+def test_calendar_month_equals_numpy_datetime_fields():
+    """Against numpy's own calendar conversion (datetime64[M]) over 1950-2100, with times on
+    and either side of every month start."""
+    from qcpipe.checks.range import calendar_month
+
+    starts = np.arange(np.datetime64("1950-01"), np.datetime64("2100-01")).astype("datetime64[ns]").view(np.int64)
+    t = np.sort(np.concatenate([starts - 1, starts, starts + 1, starts + 86_400_000_000_000 * 15]))
+    expected = t.astype("datetime64[ns]").astype("datetime64[M]").astype(np.int64) % 12 + 1
+    np.testing.assert_array_equal(calendar_month(t), expected)
+    rng = np.random.default_rng(3)
+    shuffled = rng.permutation(t)                   # the check does not need sorted times
+    np.testing.assert_array_equal(calendar_month(shuffled),
+                                  shuffled.astype("datetime64[ns]").astype("datetime64[M]").astype(np.int64) % 12 + 1)
