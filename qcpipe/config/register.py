@@ -279,6 +279,8 @@ class LoadedRegister:
         self.model, self.path, self.sha256 = model, path, sha256
 
     def __getattr__(self, name):
+        if name == "model":        # not set yet (unpickling): no recursion through self.model
+            raise AttributeError(name)
         return getattr(self.model, name)
 
     def constituents_path(self, site_id: str) -> Path | None:

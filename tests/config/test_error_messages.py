@@ -149,3 +149,16 @@ def test_rule_hash_ignores_comments_and_order(tmp_path):
     assert a.sha256 == b.sha256
     c, _ = load(tmp_path, load_rules, RULES.replace("fail = 5.0", "fail = 5.5"), "c.toml")
     assert c.sha256 != a.sha256
+
+
+def test_loaded_register_survives_pickling():
+    """A loaded register crosses process boundaries (Dask workers) intact."""
+    import pickle
+
+    from qcpipe import pipeline
+    from tests.conftest import REPO
+
+    reg = pipeline.load_context(REPO / "sample_raw" / "workspace.toml").register
+    back = pickle.loads(pickle.dumps(reg))
+    assert back.sha256 == reg.sha256
+    assert [d.id for d in back.deployment] == [d.id for d in reg.deployment]
