@@ -292,6 +292,11 @@ class RuleSet:
     def name(self) -> str:
         return self.info.name
 
+    @property
+    def stations(self) -> list[str]:
+        """Station ids that have overrides, in the order written."""
+        return list(dict.fromkeys(st for st, _ in self._effective if st is not None))
+
     def for_variable(self, variable: str, station: str | None = None) -> VariableRules | None:
         return self._effective.get((station, variable)) or self._effective.get((None, variable))
 

@@ -69,6 +69,11 @@ class Workspace:
                 raise ConfigError(
                     f"{register.path}: key instrument[{i}] (id {inst.serial!r}).layout: layout "
                     f"{inst.layout!r} is not in {layouts.path}; add it there or correct the name")
+        known = {s.id for s in register.station}
+        for st in rules.stations:
+            if st not in known:
+                raise ConfigError(f"{rules.path}: key station.{st}: station {st!r} is not in the register "
+                                  f"{register.path}; correct the station id or remove the override")
         from ..tide.harmonics import load_constituents
         for i, site in enumerate(register.site):
             path = register.constituents_path(site.id)

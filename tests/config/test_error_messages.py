@@ -162,3 +162,35 @@ def test_loaded_register_survives_pickling():
     back = pickle.loads(pickle.dumps(reg))
     assert back.sha256 == reg.sha256
     assert [d.id for d in back.deployment] == [d.id for d in reg.deployment]
+
+
+@pytest.mark.parametrize("what", ["rule override", "annotation"])
+def test_unknown_station_in_rules_or_annotations_is_named(tmp_path, what):
+    """A station id the register does not know, in a rule-set override or a review annotation,
+    stops the load with one line naming the file, the key and the id."""
+    import shutil
+
+    from qcpipe.config.workspace import load_workspace
+    from qcpipe.errors import ConfigError
+    from tests.conftest import REPO
+
+    shutil.copytree(REPO / "sample_raw", tmp_path / "sample_raw")
+    shutil.copytree(REPO / "qc_rules", tmp_path / "qc_rules")
+    ws = load_workspace(tmp_path / "sample_raw" / "workspace.toml")
+    if what == "rule override":
+        ws.rules_path.write_text(ws.rules_path.read_text()
+                                 + "\n[station.kc-nowhere.variable.temperature]\nspike = { suspect = 3.0 }\n")
+        target = ws.rules_path
+    else:
+        target = tmp_path / "sample_raw" / "annotations.toml"
+        target.write_text('[[annotation]]\nstation = "kc-nowhere"\nvariables = ["all"]\n'
+                          'start = 2026-10-01T00:00:00Z\nend = 2026-10-02T00:00:00Z\nflag = 3\n'
+                          'reason = "probe fouled"\nreviewer = "A. Reviewer"\ndate = 2026-10-06\n')
+        ws_file = tmp_path / "sample_raw" / "workspace.toml"
+        ws_file.write_text(ws_file.read_text().replace('[paths]\n', '[paths]\nannotations = "annotations.toml"\n'))
+        ws = load_workspace(ws_file)
+    with pytest.raises(ConfigError) as err:
+        ws.load()
+    msg = str(err.value)
+    assert str(target) in msg and "kc-nowhere" in msg and "not in the register" in msg
+    assert "\n" not in msg
