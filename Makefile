@@ -41,6 +41,8 @@ demo-data: $(STAMP)
 clean-demo:
 	rm -rf demo_archive
 
-## make bench: speed ratios against their targets (benchmarks/README.md); writes benchmarks/last-run.json
+## make bench: speed ratios against their targets (benchmarks/README.md); writes benchmarks/last-run.json,
+## then the speed-up of 2 Dask workers over 1 on a multi-station nightly run
 bench: $(STAMP)
 	$(PY) benchmarks/run.py
+	$(PY) benchmarks/dask_speedup.py

@@ -19,7 +19,7 @@ from prefect import flow, unmapped
 from qcpipe import pipeline
 
 from .runners import flow_for, runs_on
-from .tasks import Job, merge_deployment, quarantine, read_raw_file, refresh_inputs, report_run, run_plan
+from .tasks import Job, close_run, merge_deployment, quarantine, read_raw_file, refresh_inputs, report_run, run_plan
 
 
 @flow(name="qcpipe-nightly", log_prints=False)
@@ -63,6 +63,6 @@ def _nightly(workspace: str) -> pipeline.RunSummary:
         summary.ingested = sum(len(files) for files in by_dep.values())
         outcome = "nothing new" if summary.nothing_new else "completed"
     finally:
-        ctx.catalog.end_run(run_id, outcome, summary.as_counts())
+        close_run(ctx, run_id, outcome, summary)
     report_run(Job.of(ctx), run_id, summary)
     return summary

@@ -16,7 +16,7 @@ from prefect import flow
 from qcpipe import pipeline
 
 from .runners import flow_for, runs_on
-from .tasks import Job, report_run, refresh_inputs, run_plan
+from .tasks import Job, close_run, report_run, refresh_inputs, run_plan
 
 
 @flow(name="qcpipe-rerun", log_prints=False)
@@ -53,6 +53,6 @@ def _rerun(workspace: str, deployments: list[str] | None) -> pipeline.RunSummary
         run_plan(ctx, pipeline.plan_qc(ctx, touched), {}, summary, run_id)
         outcome = "nothing new" if summary.nothing_new else "completed"
     finally:
-        ctx.catalog.end_run(run_id, outcome, summary.as_counts())
+        close_run(ctx, run_id, outcome, summary)
     report_run(Job.of(ctx), run_id, summary)
     return summary

@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import sqlite3
+import sys
 from dataclasses import dataclass
 
 from prefect import task
@@ -139,6 +141,21 @@ def report_run(job: Job, run_id: int, summary: pipeline.RunSummary) -> None:
         summary.report = write_report(job, run_id, summary)
     except Exception as err:  # noqa: BLE001 - the run's data are safe; say what went wrong
         summary.notices.append(f"the run's report was not written: {type(err).__name__}: {err}")
+
+
+def close_run(ctx, run_id: int, outcome: str, summary: pipeline.RunSummary) -> None:
+    """Record the run's end in the catalog (and release its lock).
+
+    Called from the flow's ``finally``: when an error is already stopping the
+    run (a full disk, say), a failure to record the end (that same full disk)
+    must not hide the first error, so it is dropped; the run then stays
+    without an end in the catalog, like a run that was killed."""
+    stopping = sys.exc_info()[1] is not None
+    try:
+        ctx.catalog.end_run(run_id, outcome, summary.as_counts())
+    except (OSError, sqlite3.Error):
+        if not stopping:
+            raise
 
 
 def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary,

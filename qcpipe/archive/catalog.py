@@ -12,6 +12,7 @@ import sqlite3
 from contextlib import contextmanager
 from pathlib import Path
 
+from ..errors import ArchiveError
 from .faults import crash_point
 
 MIGRATIONS = [
@@ -104,8 +105,12 @@ class Catalog:
     def _connect(self) -> sqlite3.Connection:
         con = sqlite3.connect(self.path, timeout=30, isolation_level=None)
         con.row_factory = sqlite3.Row
-        con.execute("PRAGMA journal_mode=WAL")
-        con.execute("PRAGMA foreign_keys=ON")
+        try:
+            con.execute("PRAGMA journal_mode=WAL")
+            con.execute("PRAGMA foreign_keys=ON")
+        except sqlite3.OperationalError as err:
+            con.close()
+            raise _storage_error(err, self.path) from None
         return con
 
     @contextmanager
@@ -116,8 +121,14 @@ class Catalog:
             yield con
             crash_point("before-commit catalog")
             con.execute("COMMIT")
-        except BaseException:
-            con.execute("ROLLBACK")
+        except BaseException as err:
+            if con.in_transaction:
+                try:
+                    con.execute("ROLLBACK")
+                except sqlite3.Error:
+                    pass               # the connection closes below; SQLite rolls back what was not committed
+            if isinstance(err, sqlite3.OperationalError):
+                raise _storage_error(err, self.path) from None
             raise
         finally:
             con.close()
@@ -212,6 +223,16 @@ class Catalog:
         sql = f"SELECT * FROM {table}" + (f" WHERE {clause}" if clause else "") + f" ORDER BY {order}"
         with self._connect() as con:
             return [_row(r) for r in con.execute(sql, tuple(where.values()))]
+
+
+def _storage_error(err: sqlite3.OperationalError, path: Path) -> Exception:
+    """SQLite's report of a full disk or a failing device as a one-line ArchiveError (others unchanged)."""
+    text = str(err).lower()
+    if "disk" in text or "full" in text or "readonly" in text or "read-only" in text:
+        return ArchiveError(f"cannot write the catalog {path} ({err}): the archive's disk is full or failing; "
+                            "free space (or fix the disk) and run again (the catalog keeps its last committed "
+                            "state)")
+    return err
 
 
 def _row(r: sqlite3.Row) -> dict:

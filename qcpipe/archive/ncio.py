@@ -14,6 +14,16 @@ import xarray as xr
 
 from .store import atomic_path
 
+# xarray's to_netcdf asks dask for its scheduler, which imports dask.distributed on first use.
+# Two task threads doing that first import at once can see a half-initialised module
+# ("module 'dask' has no attribute 'utils'", seen in the crash tests), so it is imported here,
+# once, when this module is imported (before any task thread starts).
+try:
+    import dask.base  # noqa: F401
+    import distributed  # noqa: F401
+except ImportError:        # dask is optional for xarray; without it there is nothing to import
+    pass
+
 NC_LOCK = threading.RLock()
 
 
