@@ -366,12 +366,18 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                            flag_counts=fc, raw_sha256=store.sources, qc_key=key, qc_inputs=inputs,
                            sha256=sha256_of_file(out_path), run_id=run_id)
     prune_versions(ctx, dep.id)
-    run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
-    if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
-        run_counts.update(duplicates=counts.get("duplicates", 0), conflicts=counts.get("conflicts", 0))
+    run_counts = _run_counts(new_files, counts)
     progress.step("qc", f"{station.id}/{dep.id} v{version:03d}")
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
                             notices, products)
+
+
+def _run_counts(new_files, store_counts: dict) -> dict:
+    """What this run's new files of a deployment add to the run's counts."""
+    run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
+    if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
+        run_counts.update(duplicates=store_counts.get("duplicates", 0), conflicts=store_counts.get("conflicts", 0))
+    return run_counts
 
 
 def _committed_by_run(ctx: Context, deployment_id: str, run_id: int | None,
@@ -382,12 +388,11 @@ def _committed_by_run(ctx: Context, deployment_id: str, run_id: int | None,
     row = ctx.catalog.latest_dataset(deployment_id)
     if row is None or row.get("run_id") != run_id:
         return None
-    counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in _COUNT_KEYS}
-    fc = row["flag_counts"]
-    fc = json.loads(fc) if isinstance(fc, str) else fc
-    return DeploymentResult(row["station"], deployment_id, Path(row["path"]), row["version"], row["samples"], fc,
-                            counts, [f"{row['station']}/{deployment_id}: version {row['version']} was written by an "
-                                     "earlier attempt of this run (the task was tried again after an I/O error)"])
+    store_counts = load_store(ctx, deployment_id).counts if new_files else {}
+    return DeploymentResult(row["station"], deployment_id, Path(row["path"]), row["version"], row["samples"],
+                            row["flag_counts"], _run_counts(new_files, store_counts),
+                            [f"{row['station']}/{deployment_id}: version {row['version']} was written by an "
+                             "earlier attempt of this run (the task was tried again after an I/O error)"])
 
 
 def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:

@@ -127,8 +127,9 @@ class Catalog:
                     con.execute("ROLLBACK")
                 except sqlite3.Error:
                     pass               # the connection closes below; SQLite rolls back what was not committed
-            if isinstance(err, sqlite3.OperationalError):
-                raise _storage_error(err, self.path) from None
+            mapped = _storage_error(err, self.path) if isinstance(err, sqlite3.OperationalError) else err
+            if mapped is not err:
+                raise mapped from None
             raise
         finally:
             con.close()

@@ -32,13 +32,12 @@ class ArchiveLock:
         self.fd: int | None = None
 
     def acquire(self, wait_s: float = 0.0) -> "ArchiveLock":
-        key = str(self.path.resolve()) if self.path.parent.exists() else str(self.path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        key = str(self.path.resolve())
         if key in _HELD:
             _HELD[key][1] += 1
             self.fd, self._key = _HELD[key][0], key
             return self
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        key = str(self.path.resolve())
         fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
         deadline = time.monotonic() + max(wait_s, 0.0)
         while True:
@@ -70,13 +69,12 @@ class ArchiveLock:
                 self.fd = None
                 return
             del _HELD[self._key]
-        if self.fd is not None:
-            try:
-                os.ftruncate(self.fd, 0)
-                fcntl.flock(self.fd, fcntl.LOCK_UN)
-            finally:
-                os.close(self.fd)
-                self.fd = None
+        try:
+            os.ftruncate(self.fd, 0)
+            fcntl.flock(self.fd, fcntl.LOCK_UN)
+        finally:
+            os.close(self.fd)
+            self.fd = None
 
     def __enter__(self):
         return self.acquire(float(os.environ.get("QCPIPE_LOCK_WAIT", "0") or 0))
