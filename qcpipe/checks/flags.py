@@ -25,6 +25,21 @@ FLAG_VALUES = np.array([1, 2, 3, 4, 9], dtype=np.int8)
 #: Space-separated meanings of :data:`FLAG_VALUES` (CF ``flag_meanings``).
 FLAG_MEANINGS = "pass not_evaluated suspect fail missing"
 
+def _grade(d: np.ndarray, suspect, fail, *, at_threshold: bool = False) -> np.ndarray:
+    """Flag 1, 3 or 4 per element of `d`: 3 beyond `suspect`, 4 beyond `fail` (internal).
+
+    "Beyond" is ``>`` (or ``>=`` with `at_threshold`); `suspect` <= `fail`, so
+    a sample beyond `fail` is also beyond `suspect` and the flag is
+    ``1 + 2 * [beyond suspect] + [beyond fail]``. NaN is beyond nothing (1).
+    """
+    beyond = np.greater_equal if at_threshold else np.greater
+    out = beyond(d, suspect).view(np.int8)
+    out *= 2
+    out += beyond(d, fail).view(np.int8)
+    out += PASS
+    return out
+
+
 # Severity rank of each flag value (index = flag value). Only 1, 3 and 4 carry a
 # verdict; 2 (not evaluated) and 9 (missing) rank 0 and are ignored when combining.
 _RANK = np.zeros(10, dtype=np.int8)

@@ -7,7 +7,9 @@ import numpy as np
 from . import _validate as v
 from ._series import series
 from ._windows import (
-    constant_windows,
+    blocks,
+    distinct_times,
+    last_change_before_stop,
     previous_valid_index,
     reference_value,
     running_sums,
@@ -70,24 +72,49 @@ def rate_of_change_flags(
     n_sigma = v.positive(n_sigma, func=func, name="n_sigma")
     min_samples = v.count(min_samples, func=func, name="min_samples", minimum=2)
 
-    flags = np.full(x.shape, MISSING, dtype=np.int8)
     if x.size == 0:
-        return flags
+        return np.full(x.shape, MISSING, dtype=np.int8)
     _, c, s1, s2 = running_sums(x, ok, ref=reference_value(x, ok), squares=True)
     start, stop = window_bounds(t, window_ns, 0, include_before=False, include_after=False)
-    k = c[stop] - c[start]
-    a, b = s1[stop] - s1[start], s2[stop] - s2[start]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        var = np.maximum((b - a * a / k) / (k - 1), 0.0)
-    var[constant_windows(x, ok, c, start, stop)] = 0.0
-    sigma = np.sqrt(var)
+    if distinct_times(t):
+        stop = None  # the window ends just before the sample itself: stop_i = i
 
-    prev = previous_valid_index(ok)
+    prev = previous_valid_index(ok, c)
     has_prev = prev >= 0
-    step = np.zeros(x.shape)
-    step[has_prev] = np.abs(x[has_prev] - x[prev[has_prev]])
+    step = x[prev]  # prev = -1 picks the last value; those samples are not evaluated below
+    np.subtract(x, step, out=step)
+    np.abs(step, out=step)
     with np.errstate(invalid="ignore"):
-        verdict = np.where(step > n_sigma * sigma, SUSPECT, PASS).astype(np.int8)
-    verdict[(k < min_samples) | ~has_prev] = NOT_EVALUATED
-    flags[ok] = verdict[ok]
+        change = step > 0  # NaN (missing sample) is no change
+    change &= has_prev
+    last_change = last_change_before_stop(change, c, stop)
+
+    flags = np.empty(x.shape, dtype=np.int8)
+    for b in blocks(x.size):
+        lo = start[b]
+        hi = b if stop is None else stop[b]
+        c_lo = c[lo]
+        k = c[hi] - c_lo
+        a = s1[hi]
+        a -= s1[lo]
+        var = s2[hi]
+        var -= s2[lo]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            a *= a
+            a /= k
+            var -= a
+            var /= k - 1
+        np.maximum(var, 0.0, out=var)
+        constant = k > 0
+        constant &= last_change[b] <= c_lo  # an exactly constant window: s = 0
+        var[constant] = 0.0
+        np.sqrt(var, out=var)
+        var *= n_sigma
+        with np.errstate(invalid="ignore"):
+            f = np.greater(step[b], var).view(np.int8)
+        f *= SUSPECT - PASS
+        f += PASS
+        f[(k < min_samples) | ~has_prev[b]] = NOT_EVALUATED
+        np.copyto(f, MISSING, where=~ok[b])
+        flags[b] = f
     return flags

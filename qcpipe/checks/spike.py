@@ -6,8 +6,8 @@ import numpy as np
 
 from . import _validate as v
 from ._series import series
-from ._windows import reference_value, running_sums, window_bounds
-from .flags import FAIL, MISSING, NOT_EVALUATED, PASS, SUSPECT
+from ._windows import blocks, reference_value, running_sums, window_bounds
+from .flags import MISSING, NOT_EVALUATED, _grade
 
 
 def spike_flags(
@@ -71,16 +71,25 @@ def spike_flags(
     v.ordered(suspect, fail, func=func, names=("suspect", "fail"), strict=False)
     min_neighbours = v.count(min_neighbours, func=func, name="min_neighbours", minimum=1)
 
-    flags = np.full(x.shape, MISSING, dtype=np.int8)
     if x.size == 0:
-        return flags
+        return np.full(x.shape, MISSING, dtype=np.int8)
     xz, c, s1 = running_sums(x, ok, ref=reference_value(x, ok))
     start, stop = window_bounds(t, half_ns, half_ns, include_before=True, include_after=True)
-    k = c[stop] - c[start] - ok  # the sample itself is not its own neighbour
-    total = s1[stop] - s1[start] - xz
-    with np.errstate(invalid="ignore", divide="ignore"):
-        d = np.abs(xz - total / k)
-    verdict = np.where(d > fail, FAIL, np.where(d > suspect, SUSPECT, PASS)).astype(np.int8)
-    verdict[k < min_neighbours] = NOT_EVALUATED
-    flags[ok] = verdict[ok]
+    flags = np.empty(x.shape, dtype=np.int8)
+    for b in blocks(x.size):
+        lo, hi, here = start[b], stop[b], ok[b]
+        k = c[hi]
+        k -= c[lo]
+        k -= here  # the sample itself is not its own neighbour
+        d = s1[hi]
+        d -= s1[lo]
+        d -= xz[b]  # sum over the neighbours
+        with np.errstate(invalid="ignore", divide="ignore"):
+            d /= k
+            np.subtract(xz[b], d, out=d)
+        np.abs(d, out=d)
+        f = _grade(d, suspect, fail)
+        f[k < min_neighbours] = NOT_EVALUATED
+        np.copyto(f, MISSING, where=~here)
+        flags[b] = f
     return flags

@@ -7,7 +7,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from qcpipe.checks._windows import _equal_run_edge, sorted_search, window_bounds
+from qcpipe.checks._windows import (
+    _equal_run_edge,
+    constant_windows,
+    previous_valid_index,
+    running_sums,
+    sorted_search,
+    window_bounds,
+)
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -37,6 +44,38 @@ def test_window_bounds_with_zero_width_sides():
             start, stop = window_bounds(t, 0, 0, include_before=inc_b, include_after=inc_a)
             np.testing.assert_array_equal(start, np.searchsorted(t, t, "left" if inc_b else "right"))
             np.testing.assert_array_equal(stop, np.searchsorted(t, t, "right" if inc_a else "left"))
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_symmetric_window_stops_equal_numpy(seed):
+    """A symmetric window's stops come from counting its starts, not from a second search."""
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 3000))
+    t = np.cumsum(rng.choice([0, 0, 1, 2, 3, 50], size=n)).astype(np.int64) + int(rng.integers(-100, 100))
+    for w in (1, 2, 3, 7, 49, 50, 51, 10**6):
+        for closed in (True, False):
+            start, stop = window_bounds(t, w, w, include_before=closed, include_after=closed)
+            np.testing.assert_array_equal(start, np.searchsorted(t, t - w, "left" if closed else "right"))
+            np.testing.assert_array_equal(stop, np.searchsorted(t, t + w, "right" if closed else "left"))
+
+
+def test_constant_windows_equal_brute_force():
+    """Exact constancy of every window against a direct look at its valid values."""
+    rng = np.random.default_rng(5)
+    n = 600
+    x = rng.choice([0.0, 0.0, 0.0, 1.0, 2.5, np.nan], size=n)
+    t = np.cumsum(rng.choice([0, 1, 1, 2, 9], size=n)).astype(np.int64)
+    ok = np.isfinite(x)
+    prev = previous_valid_index(ok)
+    change = ok & (prev >= 0) & (x != x[prev])
+    _, c, _ = running_sums(x, ok, ref=0.0)
+    for w in (1, 3, 10, 40):
+        for inc in (True, False):
+            start, stop = window_bounds(t, w, 0, include_before=inc, include_after=False)
+            got = constant_windows(change, c, c[start], stop)
+            want = [(lambda v: v.size > 0 and bool(np.all(v == v[0])))(x[a:b][ok[a:b]])
+                    for a, b in zip(start, stop)]
+            np.testing.assert_array_equal(got, want)
 
 
 def test_calendar_month_equals_numpy_datetime_fields():
