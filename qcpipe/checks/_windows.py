@@ -117,14 +117,15 @@ _BLOCK = 8192
 CACHE_BLOCK = 1 << 15
 
 
-def blocks(n: int, size: int = CACHE_BLOCK):
+def blocks(n: int, size: int | None = None):
     """Slices ``[0, size), [size, 2 size), ...`` covering ``range(n)``.
 
     Element-wise steps of a check run block by block so that their temporaries
     stay in cache instead of each making a full pass over memory; on 10 M
     samples this roughly halves their cost (benchmarks/run.py). The result does
-    not depend on the block size.
+    not depend on the block size (default :data:`CACHE_BLOCK`).
     """
+    size = size or CACHE_BLOCK
     for i in range(0, n, size):
         yield slice(i, min(i + size, n))
 

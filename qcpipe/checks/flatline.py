@@ -6,7 +6,7 @@ import numpy as np
 
 from . import _validate as v
 from ._series import series
-from .flags import FAIL, MISSING, PASS, SUSPECT
+from .flags import MISSING, _grade
 
 
 def flat_line_flags(
@@ -68,8 +68,13 @@ def flat_line_flags(
     if xf.size == 0:
         return flags
     starts = np.ones(xf.size, dtype=bool)
-    starts[1:] = np.abs(np.diff(xf)) > tolerance
-    run_start = np.maximum.accumulate(np.where(starts, np.arange(xf.size), 0))
-    lasted = tf - tf[run_start]
-    flags[ok] = np.where(lasted >= fail_ns, FAIL, np.where(lasted >= suspect_ns, SUSPECT, PASS))
+    d = np.diff(xf)
+    np.abs(d, out=d)
+    np.greater(d, tolerance, out=starts[1:])
+    # Time each run began: a running maximum of the times where a run starts
+    # (times are sorted, so the latest start has the largest time).
+    lasted = np.where(starts, tf, tf[0])
+    np.maximum.accumulate(lasted, out=lasted)
+    np.subtract(tf, lasted, out=lasted)
+    flags[ok] = _grade(lasted, suspect_ns, fail_ns, at_threshold=True)
     return flags

@@ -8,8 +8,8 @@ from collections.abc import Iterable, Sequence
 import numpy as np
 
 from . import _validate as v
-from ._windows import as_ns
-from .flags import FAIL, MISSING, NOT_EVALUATED, PASS, SUSPECT
+from ._windows import as_ns, blocks
+from .flags import MISSING, NOT_EVALUATED, PASS, SUSPECT
 
 
 def gross_range_flags(
@@ -69,14 +69,24 @@ def gross_range_flags(
     if elo is not None and ehi is not None:
         v.ordered(elo, ehi, func=func, names=("expected_min", "expected_max"), strict=False)
 
-    flags = np.full(x.shape, PASS, dtype=np.int8)
+    # flag = 1 + 2 [outside expected or sensor limits] + [outside sensor limits];
+    # NaN is outside nothing and becomes 9 last.
+    elo = -np.inf if elo is None else elo
+    ehi = np.inf if ehi is None else ehi
+    flags = np.empty(x.shape, dtype=np.int8)
     with np.errstate(invalid="ignore"):
-        if elo is not None:
-            flags[x < elo] = SUSPECT
-        if ehi is not None:
-            flags[x > ehi] = SUSPECT
-        flags[(x < lo) | (x > hi)] = FAIL
-    flags[np.isnan(x)] = MISSING
+        for b in blocks(x.size):
+            xb = x[b]
+            fail = np.less(xb, lo).view(np.int8)
+            fail |= np.greater(xb, hi).view(np.int8)
+            f = np.less(xb, elo).view(np.int8)
+            f |= np.greater(xb, ehi).view(np.int8)
+            f |= fail
+            f *= SUSPECT - PASS
+            f += fail
+            f += PASS
+            np.copyto(f, MISSING, where=np.isnan(xb))
+            flags[b] = f
     return flags
 
 
@@ -155,29 +165,45 @@ def climatology_flags(values, times, *, ranges) -> np.ndarray:
     v.same_shape(x, t, func=func, names=("values", "times"))
     has, low, high = _month_table(ranges, func)
 
-    month = calendar_month(t)
-    lo, hi = low[month], high[month]
-    flags = np.full(x.shape, NOT_EVALUATED, dtype=np.int8)
-    known = has[month]
+    flags = np.empty(x.shape, dtype=np.int8)
     with np.errstate(invalid="ignore"):
-        outside = (x < lo) | (x > hi)
-    flags[known] = np.where(outside[known], SUSPECT, PASS)
-    flags[np.isnan(x)] = MISSING
+        for b, month in _months_by_block(t):
+            xb = x[b]
+            f = np.less(xb, low[month]).view(np.int8)
+            f |= np.greater(xb, high[month]).view(np.int8)
+            f *= SUSPECT - PASS
+            f += PASS
+            np.copyto(f, NOT_EVALUATED, where=~has[month])
+            np.copyto(f, MISSING, where=np.isnan(xb))
+            flags[b] = f
     return flags
 
 
-def calendar_month(t_ns: np.ndarray) -> np.ndarray:
-    """Calendar month (1-12, int8) of each time (int64 ns since 1970, UTC).
+def _months_by_block(t_ns: np.ndarray):
+    """Yield ``(block, month)`` over :func:`blocks` of `t_ns`: `month` is an int
+    (1-12) where the whole block lies in one calendar month, else an int8 array.
 
-    The month starts between the earliest and the latest time are few, so each
-    time is placed among them with one search in a small table (in cache)
-    rather than converted field by field: about 6x faster on 10 M samples.
+    The month starts between the earliest and the latest time are few, so times
+    are placed among them in a small table rather than converted field by
+    field; a block within one month (nearly every block of a sorted record)
+    needs no search at all.
     """
     if t_ns.size == 0:
-        return np.zeros(0, dtype=np.int8)
+        return
     first = np.datetime64(int(t_ns.min()), "ns").astype("datetime64[M]")
     last = np.datetime64(int(t_ns.max()), "ns").astype("datetime64[M]")
     starts = np.arange(first, last + 1)
     edges = starts.astype("datetime64[ns]").view(np.int64)
     months = (starts.astype(np.int64) % 12 + 1).astype(np.int8)
-    return months[np.searchsorted(edges, t_ns, side="right") - 1]
+    for b in blocks(t_ns.size):
+        tb = t_ns[b]
+        i, j = np.searchsorted(edges, (tb.min(), tb.max()), side="right") - 1
+        yield b, (int(months[i]) if i == j else months[np.searchsorted(edges, tb, side="right") - 1])
+
+
+def calendar_month(t_ns: np.ndarray) -> np.ndarray:
+    """Calendar month (1-12, int8) of each time (int64 ns since 1970, UTC)."""
+    out = np.empty(t_ns.shape, dtype=np.int8)
+    for b, month in _months_by_block(t_ns):
+        out[b] = month
+    return out

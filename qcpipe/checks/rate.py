@@ -95,10 +95,8 @@ def rate_of_change_flags(
         hi = b if stop is None else stop[b]
         c_lo = c[lo]
         k = c[hi] - c_lo
-        a = s1[hi]
-        a -= s1[lo]
-        var = s2[hi]
-        var -= s2[lo]
+        a = np.subtract(s1[hi], s1[lo])  # hi may be a slice: never subtract into a view
+        var = np.subtract(s2[hi], s2[lo])
         with np.errstate(invalid="ignore", divide="ignore"):
             a *= a
             a /= k

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import _validate as v
-from ._windows import as_ns, check_non_decreasing, previous_valid_index
+from ._windows import as_ns, blocks, check_non_decreasing, previous_valid_index
 from .flags import FAIL, MISSING, NOT_EVALUATED, PASS, SUSPECT
 
 EMERSED = 0
@@ -31,6 +31,8 @@ def _state(state, *, func: str) -> np.ndarray:
             "(1 immersed, 0 emersed, 2 unknown)"
         )
     v.as_1d(s, func=func, name="state")
+    if s.size and min(_STATES) <= s.min() and s.max() <= max(_STATES):
+        return s.astype(np.int8, copy=False)  # the states are 0, 1, 2: no gaps in between
     bad = ~np.isin(s, _STATES)
     if bad.any():
         i = int(np.argmax(bad))
@@ -47,14 +49,6 @@ def _times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray
     v.same_shape(s, t, func=func, names=("state", "times"))
     check_non_decreasing(t, func=func)
     return t, s
-
-
-def _run_start(member: np.ndarray) -> np.ndarray:
-    """Index of the first sample of the run of consecutive True `member` samples
-    each sample belongs to (meaningful only where `member` is True)."""
-    first = member.copy()
-    first[1:] &= ~member[:-1]
-    return np.maximum.accumulate(np.where(first, np.arange(member.size), 0))
 
 
 def immersion_consistency_flags(
@@ -132,18 +126,38 @@ def immersion_consistency_flags(
         v.same_shape(r, t, func=func, names=("reading", "times"))
         missing = ~np.isfinite(r)
 
+    flags = np.empty(t.shape, dtype=np.int8)
+    run_began = np.iinfo(np.int64).min  # time the current run of disagreement began
+    was_disagreeing = False
     with np.errstate(invalid="ignore"):
-        want_wet = lv > z + margin
-        want_dry = lv < z - margin
-    evaluated = (want_wet | want_dry) & (s != UNKNOWN) & ~missing
-    agree = evaluated & ((want_wet & (s == IMMERSED)) | (want_dry & (s == EMERSED)))
-    disagree = evaluated & ~agree
-
-    lasted = t - t[_run_start(disagree)]
-    flags = np.full(t.shape, NOT_EVALUATED, dtype=np.int8)
-    flags[agree] = PASS
-    flags[disagree] = np.where(lasted[disagree] > fail_ns, FAIL, SUSPECT)
-    flags[missing] = MISSING
+        for b in blocks(t.size):
+            sb, lb, tb = s[b], lv[b], t[b]
+            want_wet = lb > z + margin
+            want_dry = lb < z - margin
+            evaluated = want_wet | want_dry
+            evaluated &= sb != UNKNOWN
+            evaluated &= ~missing[b]
+            agree = want_wet & (sb == IMMERSED)
+            agree |= want_dry & (sb == EMERSED)
+            agree &= evaluated
+            disagree = evaluated & ~agree
+            # Start time of each run of disagreement: a running maximum of the
+            # times where a run begins (times are sorted), carried across blocks.
+            begins = disagree.copy()
+            begins[1:] &= ~disagree[:-1]
+            begins[0] &= not was_disagreeing
+            began = np.where(begins, tb, run_began)
+            np.maximum.accumulate(began, out=began)
+            # 2 - [agree] + [disagree] + [disagree for longer than fail_after_s]:
+            # 1 agree, 2 not evaluated, 3 suspect, 4 fail.
+            f = np.subtract(NOT_EVALUATED, agree.view(np.int8), dtype=np.int8)
+            f += disagree.view(np.int8)
+            long = np.greater(tb - began, fail_ns)
+            long &= disagree
+            f += long.view(np.int8)
+            np.copyto(f, MISSING, where=missing[b])
+            flags[b] = f
+            run_began, was_disagreeing = int(began[-1]), bool(disagree[-1])
     return flags
 
 
