@@ -116,10 +116,9 @@ def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide, run_id=job.run_id)
 
 
-@retrying_task("write-run-report")
-def write_report(job: Job, run_id: int, summary: pipeline.RunSummary) -> str:
-    """Write the run's HTML report into the archive and publish its Prefect artifacts."""
-    from qcpipe.report import publish_artifacts, run_diff, run_from_summary, write_run_report
+def report_run_dict(job: Job, run_id: int, summary: pipeline.RunSummary) -> dict:
+    """The run as the report shows it: the summary, the catalog's record of the run and what changed."""
+    from qcpipe.report import run_diff, run_from_summary
 
     ctx = job.context()
     row = next(r for r in ctx.catalog.runs() if r["id"] == run_id)
@@ -127,18 +126,40 @@ def write_report(job: Job, run_id: int, summary: pipeline.RunSummary) -> str:
                            outcome=row["outcome"])
     run["kind"] = row.get("kind")
     run["diff"] = run_diff(ctx.paths.root, run)
-    report = write_run_report(ctx.paths.root, run)
+    return run
+
+
+@retrying_task("write-station-report")
+def write_station_report(job: Job, run: dict, station: str) -> str:
+    """Write one station's page of the run report (its plots are most of the report's cost)."""
+    from qcpipe.report import write_station_pages
+
+    return str(write_station_pages(job.context().paths.root, run, [station])[0])
+
+
+@retrying_task("write-run-report")
+def write_report(job: Job, run: dict) -> str:
+    """Write the run report's index into the archive and publish its Prefect artifacts."""
+    from qcpipe.report import publish_artifacts, write_run_report
+
+    report = write_run_report(job.context().paths.root, run, station_pages=False)
     publish_artifacts(run, report)
     return str(report)
 
 
 def report_run(job: Job, run_id: int, summary: pipeline.RunSummary) -> None:
-    """The report of a run that changed something; a failure to write it is a notice, not a failed run
-    (the data are already committed)."""
+    """The report of a run that changed something, station pages in parallel on the flow's runner;
+    a failure to write it is a notice, not a failed run (the data are already committed)."""
     if summary.nothing_new:
         return
+    from qcpipe.report import report_stations
+
     try:
-        summary.report = write_report(job, run_id, summary)
+        run = report_run_dict(job, run_id, summary)
+        pages = [write_station_report.submit(job, run, st) for st in report_stations(job.context().paths.root)]
+        for page in pages:
+            page.result()
+        summary.report = write_report(job, run)
     except Exception as err:  # noqa: BLE001 - the run's data are safe; say what went wrong
         summary.notices.append(f"the run's report was not written: {type(err).__name__}: {err}")
 

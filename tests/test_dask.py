@@ -122,9 +122,10 @@ def test_tasks_ran_on_both_workers_and_only_with_dask(two_runs):
     assert after_default == before, "the default runner must not use the cluster"
     ran = {w: after_dask[w] - after_default[w] for w in after_dask}
     assert len(ran) == 2 and all(n >= 3 for n in ran.values()), ran
-    # 18 files read, 8 deployments merged, 1 gauge and 3 stations QC'd (the two rejected files are
-    # quarantined in the flow's own process)
-    assert sum(ran.values()) == 18 + 8 + 1 + 3, ran
+    # 18 files read, 8 deployments merged, 1 gauge and 3 stations QC'd, the run report's pages of
+    # those 4 stations rendered (the two rejected files are quarantined and the report's index is
+    # written in the flow's own process)
+    assert sum(ran.values()) == 18 + 8 + 1 + 3 + 4, ran
 
 
 def test_both_runs_succeed_quietly(two_runs):

@@ -783,7 +783,35 @@ def _report_dir_name(run: dict) -> str:
     return "run-" + safe_file_name(re.sub(r"[^0-9TZ]", "", str(stamp)))
 
 
-def write_run_report(archive_root: str | Path, run: dict, *, out_dir: str | Path | None = None) -> Path:
+def _report_out(archive_root: str | Path, run: dict, out_dir: str | Path | None) -> tuple[Path, Path]:
+    root = Path(archive_root).resolve()
+    json.dumps(run)                                      # fail early on a value that is not JSON-able
+    out = Path(out_dir).resolve() if out_dir is not None else root / "reports" / _report_dir_name(run)
+    out.mkdir(parents=True, exist_ok=True)
+    return root, out
+
+
+def report_stations(archive_root: str | Path) -> list[str]:
+    """The stations that get a page in a run report of this archive."""
+    return _Archive(Path(archive_root).resolve()).stations()
+
+
+def write_station_pages(archive_root: str | Path, run: dict, stations, *,
+                        out_dir: str | Path | None = None) -> list[Path]:
+    """Write the pages of `stations` of the run's report (their plots are most of a report's cost,
+    so a flow can render stations on several workers), then call :func:`write_run_report` with
+    ``station_pages=False`` for the index."""
+    root, out = _report_out(archive_root, run, out_dir)
+    archive = _Archive(root)
+    pages = []
+    for st in stations:
+        pages.append(out / _station_page_name(st))
+        _write_page(pages[-1], _station_html(st, archive, run, out))
+    return pages
+
+
+def write_run_report(archive_root: str | Path, run: dict, *, out_dir: str | Path | None = None,
+                     station_pages: bool = True) -> Path:
     """Write the run's HTML report and return the path of its ``index.html``.
 
     Parameters
@@ -791,16 +819,15 @@ def write_run_report(archive_root: str | Path, run: dict, *, out_dir: str | Path
     archive_root : path of the archive folder (with ``catalog.sqlite``)
     run : the run dict described in the module docstring
     out_dir : folder for the pages (default ``<archive>/reports/run-<id>``)
+    station_pages : also write every station's page (False: they were written by
+        :func:`write_station_pages`)
     """
-    root = Path(archive_root).resolve()
-    json.dumps(run)                                      # fail early on a value that is not JSON-able
-    out = Path(out_dir).resolve() if out_dir is not None else root / "reports" / _report_dir_name(run)
-    out.mkdir(parents=True, exist_ok=True)
+    root, out = _report_out(archive_root, run, out_dir)
     archive = _Archive(root)
     stations = archive.stations()
     touched = {r.get("station") for r in run.get("results", [])}
-    for st in stations:
-        _write_page(out / _station_page_name(st), _station_html(st, archive, run, out))
+    if station_pages:
+        write_station_pages(root, run, stations, out_dir=out)
     body = ["<h2 id=\"needs-attention\">Needs attention</h2>",
             _attention_html(_attention_items(run, archive), "Nothing in this run needs attention."),
             _this_run_html(run, archive, out)]

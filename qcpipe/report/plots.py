@@ -15,6 +15,7 @@ Nothing here reads files or computes science: the caller passes the arrays.
 from __future__ import annotations
 
 import io
+import threading
 
 import matplotlib
 
@@ -266,8 +267,12 @@ def plot_daily_exposure(days, hours_emersed, max_temp, *, title: str = "Daily ex
 def png_bytes(fig: Figure, *, dpi: int = 100) -> bytes:
     """The figure rendered as PNG bytes (Agg canvas, nothing kept open)."""
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
+    with _RENDER_LOCK:  # matplotlib shares font objects between figures: one render at a time per process
+        fig.savefig(buf, format="png", dpi=dpi)
     return buf.getvalue()
+
+
+_RENDER_LOCK = threading.Lock()
 
 
 def _wrap(text: str, width: int) -> str:
