@@ -72,7 +72,7 @@ from pathlib import Path
 import numpy as np
 
 from ..archive.catalog import Catalog
-from ..archive.ncio import read_dataset
+from ..archive.ncio import read_attrs, read_dataset
 from ..archive.store import atomic_path, safe_file_name
 from . import plots
 
@@ -194,6 +194,7 @@ class _Archive:
     def __init__(self, root: Path):
         self.root = root
         self._cache: dict[Path, object] = {}
+        self._headers: dict[Path, dict] = {}
         cat_path = root / "catalog.sqlite"
         rows = Catalog(cat_path).datasets() if cat_path.exists() else []
         latest: dict[str, dict] = {}
@@ -223,6 +224,15 @@ class _Archive:
         if path not in self._cache:
             self._cache[path] = read_dataset(path)
         return self._cache[path]
+
+    def header_attrs(self, path: Path) -> dict:
+        """Global attributes only (no data read), from the loaded dataset if there is one."""
+        path = Path(path)
+        if path in self._cache:
+            return dict(self._cache[path].attrs)
+        if path not in self._headers:
+            self._headers[path] = read_attrs(path)
+        return self._headers[path]
 
     def attrs(self, row: dict) -> dict:
         return dict(self.read(row["local_path"]).attrs)
@@ -680,10 +690,11 @@ def _iso(t) -> str:
 def _site_gauges(archive: _Archive, site_id: str) -> list[dict]:
     out = []
     for r in sorted(archive.latest.values(), key=lambda r: r["deployment"]):
-        if r["local_path"] is None:
+        # the catalog's flag counts name the dataset's variables: only a water-level dataset's
+        # header is opened (reading every dataset for each station page made pages O(datasets))
+        if r["local_path"] is None or "water_level" not in (r.get("flag_counts") or {}):
             continue
-        ds = archive.read(r["local_path"])
-        if ds.attrs.get("site_id") == site_id and "water_level" in ds.data_vars:
+        if archive.header_attrs(r["local_path"]).get("site_id") == site_id:
             out.append(r)
     return out
 
