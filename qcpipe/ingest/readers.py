@@ -19,6 +19,7 @@ import pandas as pd
 
 from ..config.layouts import Layout
 from ..errors import ParseError
+from .fasttime import fixed_width_times
 
 
 @dataclass
@@ -158,8 +159,10 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> Ra
     stamp = column(layout.time.columns[0]).str.strip()
     for ref in layout.time.columns[1:]:
         stamp = stamp + " " + column(ref).str.strip()
+    fast = fixed_width_times(stamp.to_numpy(), layout.time.format)
     try:
-        times = pd.to_datetime(stamp, format=layout.time.format, errors="coerce")
+        times = (pd.Series(fast, index=stamp.index) if fast is not None
+                 else pd.to_datetime(stamp, format=layout.time.format, errors="coerce"))
     except (ValueError, TypeError) as err:
         raise ParseError(f"{name}: times cannot be read with format {layout.time.format!r} "
                          f"({shown_text(err)}); correct the layout's time format") from None
