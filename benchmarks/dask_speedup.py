@@ -23,6 +23,7 @@ import argparse
 import json
 import os
 import re
+import resource
 import shutil
 import subprocess
 import sys
@@ -103,8 +104,6 @@ def machine_cpu_s() -> float:
 
 
 def _own_cpu_s(dask_worker=None) -> float:
-    import resource
-
     u = resource.getrusage(resource.RUSAGE_SELF)
     return u.ru_utime + u.ru_stime
 
@@ -117,8 +116,6 @@ def run_nightly(template: Path, work: Path, api_url: str, address: str | None, c
     shutil.copytree(template, work)
     ws = work / "sample_raw" / "workspace.toml"
     env = dict(os.environ, PREFECT_API_URL=api_url)
-    import resource
-
     workers0 = sum(client.run(_own_cpu_s).values()) if client is not None else 0.0
     children0 = resource.getrusage(resource.RUSAGE_CHILDREN)
     machine0 = machine_cpu_s()

@@ -116,11 +116,10 @@ def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     return pipeline.qc_station(job.context(), station_id, deployment_ids, files, tide, run_id=job.run_id)
 
 
-def report_run_dict(job: Job, run_id: int, summary: pipeline.RunSummary) -> dict:
+def report_run_dict(ctx: pipeline.Context, run_id: int, summary: pipeline.RunSummary) -> dict:
     """The run as the report shows it: the summary, the catalog's record of the run and what changed."""
     from qcpipe.report import run_diff, run_from_summary
 
-    ctx = job.context()
     row = next(r for r in ctx.catalog.runs() if r["id"] == run_id)
     run = run_from_summary(summary, run_id=run_id, started=row["started"], ended=row["ended"],
                            outcome=row["outcome"])
@@ -155,8 +154,9 @@ def report_run(job: Job, run_id: int, summary: pipeline.RunSummary) -> None:
     from qcpipe.report import report_stations
 
     try:
-        run = report_run_dict(job, run_id, summary)
-        pages = [write_station_report.submit(job, run, st) for st in report_stations(job.context().paths.root)]
+        ctx = job.context()
+        run = report_run_dict(ctx, run_id, summary)
+        pages = [write_station_report.submit(job, run, st) for st in report_stations(ctx.paths.root)]
         for page in pages:
             page.result()
         summary.report = write_report(job, run)

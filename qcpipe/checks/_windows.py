@@ -226,30 +226,30 @@ def running_sums(x: np.ndarray, ok: np.ndarray, *, ref: float, squares: bool = F
     return xz, c, s1, s2
 
 
-def constant_windows(
-    change: np.ndarray, c: np.ndarray, c_start: np.ndarray, stop: np.ndarray | None
-) -> np.ndarray:
+def constant_windows(last_change: np.ndarray, k: np.ndarray, c_start: np.ndarray) -> np.ndarray:
     """True where the window ``[start, stop)`` holds at least one valid value and all are equal.
 
-    Exact (no rounding). `change` marks each valid sample whose value differs
-    from the previous valid value; `c` is the cumulative valid count of
-    :func:`running_sums` and ``c_start = c[start]``; ``stop=None`` stands for
-    ``stop_i = i`` (saves two gathers). The window is constant exactly when its
-    last change L (the latest change at or before ``stop - 1``) is before the
-    window or is its first valid sample, i.e. when no valid sample lies in
-    ``[start, L)``: ``c[L] <= c[start]``. Since `c` is non-decreasing,
-    ``c[L]`` is a running maximum over the changes.
+    Exact (no rounding). ``last_change = last_change_before_stop(...)`` (``c[L]``
+    for the window's last change L), ``k`` the number of valid values in the
+    window and ``c_start = c[start]`` (``c`` the cumulative valid count of
+    :func:`running_sums`). The window is constant exactly when its last change
+    is before the window or is its first valid sample, i.e. when no valid
+    sample lies in ``[start, L)``: ``c[L] <= c[start]``. Works on any block of
+    samples, given the same block of each argument.
     """
-    last = last_change_before_stop(change, c, stop)
-    k = (c[:-1] if stop is None else c[stop]) - c_start
     out = k > 0
-    out &= last <= c_start  # stop - 1 = -1 only where the window is empty (k == 0)
+    out &= last_change <= c_start  # stop - 1 = -1 only where the window is empty (k == 0)
     return out
 
 
 def last_change_before_stop(change: np.ndarray, c: np.ndarray, stop: np.ndarray | None) -> np.ndarray:
-    """``c[L]`` for the latest change L at or before ``stop_i - 1`` (0 if none); see
-    :func:`constant_windows`. ``stop=None`` stands for ``stop_i = i``."""
+    """``c[L]`` for the latest change L at or before ``stop_i - 1`` (0 if none), for
+    :func:`constant_windows`.
+
+    `change` marks each valid sample whose value differs from the previous valid
+    value; ``stop=None`` stands for ``stop_i = i`` (saves a gather). Since `c` is
+    non-decreasing, ``c[L]`` is a running maximum over the changes.
+    """
     c_last_change = np.maximum.accumulate(np.where(change, c[:-1], 0))
     if stop is not None:
         return c_last_change[stop - 1]
@@ -267,9 +267,7 @@ def previous_valid_index(ok: np.ndarray, c: np.ndarray | None = None) -> np.ndar
     gather into the list of valid indices, no running maximum.
     """
     if c is None:
-        c = np.empty(ok.size + 1, dtype=np.intp)
-        c[0] = 0
-        np.cumsum(ok, out=c[1:])
+        c = _cumulative(ok, np.intp)
     valid = np.flatnonzero(ok)
     if valid.size == 0:
         return np.full(ok.size, -1, dtype=np.intp)

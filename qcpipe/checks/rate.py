@@ -8,6 +8,7 @@ from . import _validate as v
 from ._series import series
 from ._windows import (
     blocks,
+    constant_windows,
     distinct_times,
     last_change_before_stop,
     previous_valid_index,
@@ -103,9 +104,7 @@ def rate_of_change_flags(
             var -= a
             var /= k - 1
         np.maximum(var, 0.0, out=var)
-        constant = k > 0
-        constant &= last_change[b] <= c_lo  # an exactly constant window: s = 0
-        var[constant] = 0.0
+        var[constant_windows(last_change[b], k, c_lo)] = 0.0  # exactly constant: s = 0
         np.sqrt(var, out=var)
         var *= n_sigma
         with np.errstate(invalid="ignore"):

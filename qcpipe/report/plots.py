@@ -264,15 +264,16 @@ def plot_daily_exposure(days, hours_emersed, max_temp, *, title: str = "Daily ex
     return fig
 
 
+# matplotlib shares font objects between figures: one render at a time per process
+_RENDER_LOCK = threading.Lock()
+
+
 def png_bytes(fig: Figure, *, dpi: int = 100) -> bytes:
     """The figure rendered as PNG bytes (Agg canvas, nothing kept open)."""
     buf = io.BytesIO()
-    with _RENDER_LOCK:  # matplotlib shares font objects between figures: one render at a time per process
+    with _RENDER_LOCK:
         fig.savefig(buf, format="png", dpi=dpi)
     return buf.getvalue()
-
-
-_RENDER_LOCK = threading.Lock()
 
 
 def _wrap(text: str, width: int) -> str:

@@ -10,6 +10,7 @@ import pytest
 from qcpipe.checks._windows import (
     _equal_run_edge,
     constant_windows,
+    last_change_before_stop,
     previous_valid_index,
     running_sums,
     sorted_search,
@@ -59,6 +60,10 @@ def test_symmetric_window_stops_equal_numpy(seed):
             np.testing.assert_array_equal(stop, np.searchsorted(t, t + w, "right" if closed else "left"))
 
 
+def _constant(v):
+    return v.size > 0 and bool(np.all(v == v[0]))
+
+
 def test_constant_windows_equal_brute_force():
     """Exact constancy of every window against a direct look at its valid values."""
     rng = np.random.default_rng(5)
@@ -72,10 +77,16 @@ def test_constant_windows_equal_brute_force():
     for w in (1, 3, 10, 40):
         for inc in (True, False):
             start, stop = window_bounds(t, w, 0, include_before=inc, include_after=False)
-            got = constant_windows(change, c, c[start], stop)
-            want = [(lambda v: v.size > 0 and bool(np.all(v == v[0])))(x[a:b][ok[a:b]])
+            got = constant_windows(last_change_before_stop(change, c, stop), c[stop] - c[start], c[start])
+            want = [_constant(x[a:b][ok[a:b]])
                     for a, b in zip(start, stop)]
             np.testing.assert_array_equal(got, want)
+    # stop=None stands for stop_i = i (the window ends just before each sample)
+    start = window_bounds(t, 10, 0, include_before=False, include_after=False)[0]
+    got = constant_windows(last_change_before_stop(change, c, None), c[:-1] - c[start], c[start])
+    want = [_constant(x[a:b][ok[a:b]])
+            for a, b in zip(start, range(n))]
+    np.testing.assert_array_equal(got, want)
 
 
 def test_calendar_month_equals_numpy_datetime_fields():
