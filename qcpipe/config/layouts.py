@@ -30,7 +30,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
-from ..units import KNOWN_RAW_UNITS
+from ..units import UnitError, check_raw_unit
+from .rules import VARIABLE_UNITS
 from ._load import check_safe_id, content_sha256, read_toml, validate
 
 #: variables a layout can map columns to, by instrument kind
@@ -42,6 +43,8 @@ VARIABLES_BY_KIND = {
     "pressure": {"pressure", "temperature"},
 }
 KNOWN_VARIABLES = set().union(*VARIABLES_BY_KIND.values())
+#: the unit each raw variable is stored in (its raw unit must convert to it); None: any reading
+STORED_UNIT_OF = {**VARIABLE_UNITS, "ph_mv": "V", "probe_reading": None}
 
 
 class _Strict(BaseModel):
@@ -102,9 +105,7 @@ class VariableSpec(_Strict):
     @field_validator("units")
     @classmethod
     def _units(cls, v: str) -> str:
-        if v not in KNOWN_RAW_UNITS:
-            raise ValueError(f"unknown raw unit {v!r}; use one of {', '.join(KNOWN_RAW_UNITS)}")
-        return v
+        return check_raw_unit(v)
 
 
 class Layout(_Strict):
@@ -146,9 +147,13 @@ class Layout(_Strict):
     @field_validator("variables")
     @classmethod
     def _vars(cls, v: dict) -> dict:
-        for name in v:
+        for name, spec in v.items():
             if name not in KNOWN_VARIABLES:
                 raise ValueError(f"unknown variable {name!r}; use one of {', '.join(sorted(KNOWN_VARIABLES))}")
+            try:
+                check_raw_unit(spec.units, stored=STORED_UNIT_OF.get(name))
+            except UnitError as err:
+                raise ValueError(f"{name}: {err}") from None
         return v
 
     @model_validator(mode="after")

@@ -109,10 +109,14 @@ def test_rule_errors(tmp_path, old, new, key, words):
 
 @pytest.mark.parametrize("old, new, key, words", [
     ('delimiter = ";"', 'delimiter = ";;"', "layout.probe.delimiter", "one character"),
-    ('units = "count"', 'units = "furlongs"', "layout.probe.variables.probe_reading.units", "unknown raw unit"),
+    ('units = "count"', 'units = "blorps"', "layout.probe.variables.probe_reading.units", "unknown unit 'blorps'"),
+    ('units = "count"', 'units = "furlongs"', "layout.probe.variables.probe_reading.units",
+     "is not a temperature, pressure"),
+    ('probe_reading = { column = "reading", units = "count" }', 'temperature = { column = "reading", units = "hPa" }',
+     "layout.probe.variables", "temperature: unit 'hPa' is a pressure, but this variable is a temperature"),
     ('"unit (\\\\S+)"', '"unit \\\\S+"', "layout.probe.serial.pattern", "one (group)"),
     ('format = "%Y-%m-%d %H:%M:%S"', 'format = "YYYY-MM-DD"', "layout.probe.time.format", "strftime"),
-], ids=["delimiter", "units", "serial-group", "time-format"])
+], ids=["delimiter", "unknown-unit", "unit-of-no-stored-kind", "incompatible-unit", "serial-group", "time-format"])
 def test_layout_errors(tmp_path, old, new, key, words):
     assert old in LAYOUTS
     with pytest.raises(ConfigError) as info:

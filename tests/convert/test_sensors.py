@@ -6,7 +6,7 @@ import pytest
 from qcpipe.convert.sensors import (gravity_from_latitude, immersion_from_wetness,
                                     seawater_density_from_temperature, water_level_from_pressure,
                                     wetness_from_reading)
-from qcpipe.units import seconds_from_duration, to_stored_units
+from qcpipe.units import seconds_from_duration
 
 
 def test_density_matches_unesco_1983_check_value():
@@ -73,15 +73,6 @@ def test_durations(text, seconds):
 def test_bad_durations(bad):
     with pytest.raises(ValueError, match="duration"):
         seconds_from_duration(bad)
-
-
-@pytest.mark.parametrize("value, unit, expected", [
-    (32.0, "degF", 0.0), (212.0, "degF", 100.0), (273.15, "K", 0.0),      # definitions of the scales
-    (1.0, "kPa", 1000.0), (1.0, "dbar", 1.0e4), (1.0, "psi", 6894.757),  # NIST SP 811 Appendix B.8
-    (1.0, "mS cm-1", 0.1), (50000.0, "uS cm-1", 5.0),                    # 1 S m-1 = 10 mS cm-1
-])
-def test_unit_conversions(value, unit, expected):
-    assert to_stored_units(value, unit) == pytest.approx(expected, rel=1e-6)
 
 
 # --- pH from electrode millivolts -------------------------------------------------
