@@ -150,7 +150,7 @@ def qc_netcdf_chunked(source: str | Path, variable: str, rules: VariableRules, o
     import netCDF4
 
     from .archive.ncio import NC_LOCK
-    from .archive.store import atomic_path
+    from .files import atomic_path
 
     counts: dict[str, dict[int, int]] = {}
     with atomic_path(out) as tmp:

@@ -11,11 +11,11 @@
 
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
 
 from . import __version__
 from .config._load import content_sha256
+from .files import sha256_of_file
 
 #: variables each instrument kind produces and the rule set is consulted for
 KIND_VARIABLES = {
@@ -30,7 +30,7 @@ KIND_VARIABLES = {
 def _file_sha256(path: Path | None) -> str | None:
     if path is None or not Path(path).exists():
         return None
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    return sha256_of_file(path)
 
 
 def _dump(model) -> dict:

@@ -20,7 +20,8 @@ from . import __version__
 from .archive.catalog import Catalog, utc_now
 from .archive.cf import build_cf_dataset
 from .archive.ncio import read_attrs, read_dataset, write_dataset_atomic
-from .archive.store import ArchivePaths, copy_atomic, write_text_atomic
+from .archive.store import ArchivePaths
+from .files import copy_atomic, write_text_atomic
 from .config import load_workspace
 from .config.annotations import Annotations
 from .config.layouts import LoadedLayouts
@@ -28,12 +29,13 @@ from .config.register import LoadedRegister
 from .config.rules import RuleSet
 from .convert.by_kind import physical_from_raw
 from . import lineage, progress
-from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file, sha256_of_file
+from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file
+from .files import sha256_of_file
 from .ingest.timebase import merge_records
 from .qc import apply_rule_set, flag_counts
 from .archive import products as derived
 from .tidal import SiteTide, analyse_probe, state_from_level
-from .tide.harmonics import load_constituents
+from .config.constituents import load_constituents
 from .tide.immersion import immersion_at
 
 

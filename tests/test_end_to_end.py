@@ -367,7 +367,7 @@ def test_derived_products_written_and_cf_clean(demo_run, cf_tables):
 def test_gauge_fit_recovers_the_site_constants(demo_run):
     # the demo's truth is the site's own constants file; a fit to 6 weeks of the gauge (with
     # weather) must give M2 back within 2 cm and 2 degrees
-    from qcpipe.tide import load_constituents
+    from qcpipe.config.constituents import load_constituents
 
     truth = {c.name: c for c in load_constituents(demo_run.root / "sample_raw" / "tide" /
                                                   "kelpwhistle-cove.toml").constituents}

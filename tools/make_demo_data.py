@@ -623,7 +623,7 @@ def main(argv=None) -> int:
         ],
     }
     (out / "injected.json").write_text(json.dumps(key, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-    from qcpipe.tide import write_constituents
+    from qcpipe.config.constituents import write_constituents
 
     (out / "tide").mkdir(parents=True, exist_ok=True)
     write_constituents(out / "tide" / TIDE_FILE.name, tide_constants())

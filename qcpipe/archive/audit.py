@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..ingest.discover import sha256_of_file
+from ..files import sha256_of_file
 
 
 @dataclass

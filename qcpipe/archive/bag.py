@@ -9,50 +9,21 @@ The bag is built in a temporary folder and renamed into place.
 from __future__ import annotations
 
 import datetime as dt
-import hashlib
 import os
 import shutil
 import tempfile
 from pathlib import Path
 
 from .. import __version__
+from ..files import sha256_of_file, toml_text
 from ..lineage import qc_inputs
-
-
-def _sha(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while block := fh.read(1 << 20):
-            h.update(block)
-    return h.hexdigest()
-
-
-def _toml_value(v) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if v is None:
-        return '""'
-    if isinstance(v, (list, tuple)):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{k} = {_toml_value(x)}" for k, x in v.items() if x is not None) + " }"
-    s = str(v).replace("\\", "\\\\").replace('"', '\\"')
-    return f'"{s}"'
-
-
-def _toml_table(header: str, d: dict) -> str:
-    lines = [f"[[{header}]]"]
-    lines += [f"{k} = {_toml_value(v)}" for k, v in d.items() if v is not None]
-    return "\n".join(lines) + "\n"
 
 
 def register_excerpt(inputs: dict) -> str:
     """The register entries a dataset used (site, station, instrument, deployment) as TOML."""
     reg = inputs["register"]
-    return ("# excerpt of the station register used for this dataset (written by qcpipe)\n\n" +
-            "\n".join(_toml_table(k, reg[k]) for k in ("site", "station", "instrument", "deployment")))
+    return toml_text({k: [reg[k]] for k in ("site", "station", "instrument", "deployment")},
+                     comment="excerpt of the station register used for this dataset (written by qcpipe)")
 
 
 def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
@@ -98,14 +69,15 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
         payload.append(("data/config/register_excerpt.toml", excerpt))
         ann = inputs.get("annotations") or []
         ann_file = data / "config" / "annotations.toml"
-        ann_file.write_text("# review annotations of this station (written by qcpipe)\n\n" +
-                            "\n".join(_toml_table("annotation", a) for a in ann), encoding="utf-8")
+        ann_file.write_text(toml_text({"annotation": list(ann)},
+                                      comment="review annotations of this station (written by qcpipe)"),
+                            encoding="utf-8")
         payload.append(("data/config/annotations.toml", ann_file))
         readme = data / "README.txt"
         readme.write_text(_readme(station, dep, latest, raws, derived, ctx.rules, ann), encoding="utf-8")
         payload.append(("data/README.txt", readme))
 
-        manifest = "".join(f"{_sha(p)}  {rel}\n" for rel, p in sorted(payload))
+        manifest = "".join(f"{sha256_of_file(p)}  {rel}\n" for rel, p in sorted(payload))
         (tmp / "manifest-sha256.txt").write_text(manifest, encoding="utf-8")
         (tmp / "bagit.txt").write_text("BagIt-Version: 1.0\nTag-File-Character-Encoding: UTF-8\n", encoding="utf-8")
         octets = sum(p.stat().st_size for _, p in payload)
@@ -116,7 +88,7 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
                 f"External-Description: quality-controlled logger data of station {station.id}, deployment "
                 f"{dep.id}, with the raw files, configuration and derived products"]
         (tmp / "bag-info.txt").write_text("\n".join(info) + "\n", encoding="utf-8")
-        tags = "".join(f"{_sha(tmp / n)}  {n}\n" for n in ("bag-info.txt", "bagit.txt", "manifest-sha256.txt"))
+        tags = "".join(f"{sha256_of_file(tmp / n)}  {n}\n" for n in ("bag-info.txt", "bagit.txt", "manifest-sha256.txt"))
         (tmp / "tagmanifest-sha256.txt").write_text(tags, encoding="utf-8")
         if final.exists():
             old = final.with_name(final.name + ".old")

@@ -13,7 +13,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from ..errors import ArchiveError
-from .faults import crash_point
+from ..faults import crash_point
 
 MIGRATIONS = [
     # 1: first schema

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import xarray as xr
 
-from .store import atomic_path
+from ..files import atomic_path
 
 # xarray's to_netcdf asks dask for its scheduler, which imports dask.distributed on first use.
 # Two task threads doing that first import at once can see a half-initialised module

@@ -21,13 +21,14 @@ import numpy as np
 import xarray as xr
 
 from .. import __version__
+from ..config.constituents import write_constituents
+from ..files import write_text_atomic
 from ..tide.analysis import fit_constituents
 from ..tide.datums import tidal_datums
 from ..tide.events import high_low_waters, tidal_day_classes
 from ..tide.immersion import daily_exposure, exposure_periods
 from .catalog import utc_now
 from .ncio import read_dataset, write_dataset_atomic
-from .store import write_text_atomic
 
 EVENT_CLASSES = ("HHW", "LHW", "HLW", "LLW")
 
@@ -137,10 +138,10 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
     record_days = (t[-1] - t[0]).astype("timedelta64[s]").astype(float) / 86400
     if record_days >= 15:
         fit = fit_constituents(t, h, latitude=station.latitude)
-        written.append(fit.to_toml(base.with_name(base.name + "_constituents.toml"), site=site.name,
-                                   datum=site.vertical_datum,
-                                   source=f"least-squares fit by qcpipe {__version__} to {base.name} "
-                                          f"({record_days:.1f} days)"))
+        constants = fit.to_constants(site=site.name, datum=site.vertical_datum,
+                                     source=f"least-squares fit by qcpipe {__version__} to {base.name} "
+                                            f"({record_days:.1f} days)")
+        written.append(write_constituents(base.with_name(base.name + "_constituents.toml"), constants))
     return written
 
 

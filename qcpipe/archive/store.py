@@ -1,4 +1,4 @@
-"""Archive paths and atomic writes.
+"""Archive paths (atomic writes: :mod:`qcpipe.files`).
 
 Layout of an archive folder (all names are ours)::
 
@@ -14,15 +14,10 @@ Layout of an archive folder (all names are ours)::
 
 from __future__ import annotations
 
-import os
 import re
-import shutil
-import tempfile
-from contextlib import contextmanager
 from pathlib import Path
 
 from ..config._load import check_safe_id
-from .faults import crash_point
 
 _UNSAFE = re.compile(r"[^A-Za-z0-9_.\-]")
 _SHA256 = re.compile(r"[0-9a-f]{64}")
@@ -83,60 +78,3 @@ class ArchivePaths:
     def conflicts(self, deployment: str) -> Path:
         check_safe_id(deployment, "deployment id")
         return self._inside(self.root / "conflicts" / f"{deployment}.csv")
-
-
-@contextmanager
-def atomic_path(final: str | Path):
-    """Yield a temporary path beside ``final``; rename it over ``final`` on success.
-
-    The temporary file is in the same folder (same file system) so the
-    rename is atomic: readers see the old file or the complete new one,
-    never a half-written one.  On any error the temporary file is removed.
-    """
-    final = Path(final)
-    try:
-        final.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".tmp", dir=final.parent)
-    except OSError as err:
-        raise _archive_error(err, final) from None
-    os.close(fd)
-    tmp = Path(tmp)
-    try:
-        try:
-            yield tmp
-            with open(tmp, "rb") as fh:
-                os.fsync(fh.fileno())
-            crash_point(f"before-rename {final.name}")
-            os.replace(tmp, final)
-        except OSError as err:
-            raise _archive_error(err, final) from None
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-
-
-def _archive_error(err: OSError, final: Path):
-    """An expected storage failure as a one-line ArchiveError (disk full, permissions)."""
-    import errno
-
-    from ..errors import ArchiveError
-
-    if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
-        return ArchiveError(f"disk full while writing {final}: free space on the archive's disk and run again "
-                            "(nothing half-written was kept; earlier files and versions are intact)")
-    if err.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
-        return ArchiveError(f"cannot write {final} ({err.strerror}); check the archive folder's permissions")
-    return err
-
-
-def write_text_atomic(final: str | Path, text: str) -> Path:
-    with atomic_path(final) as tmp:
-        tmp.write_text(text, encoding="utf-8")
-    return Path(final)
-
-
-def copy_atomic(src: str | Path, final: str | Path) -> Path:
-    """Copy ``src`` to ``final`` atomically (the source is only read)."""
-    with atomic_path(final) as tmp:
-        shutil.copyfile(src, tmp)
-    return Path(final)

@@ -26,7 +26,7 @@ FLAG_VALUES = np.array([1, 2, 3, 4, 9], dtype=np.int8)
 FLAG_MEANINGS = "pass not_evaluated suspect fail missing"
 
 
-def _grade(d: np.ndarray, suspect, fail, *, at_threshold: bool = False) -> np.ndarray:
+def grade(d: np.ndarray, suspect, fail, *, at_threshold: bool = False) -> np.ndarray:
     """Flag 1, 3 or 4 per element of `d`: 3 beyond `suspect`, 4 beyond `fail` (internal).
 
     "Beyond" is ``>`` (or ``>=`` with `at_threshold`); `suspect` <= `fail`, so

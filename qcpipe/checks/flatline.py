@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _validate as v
-from ._series import series
-from .flags import MISSING, _grade
+from .. import arrays as v
+from ..arrays import series
+from .flags import MISSING, grade
 
 
 def flat_line_flags(
@@ -76,5 +76,5 @@ def flat_line_flags(
     lasted = np.where(starts, tf, tf[0])
     np.maximum.accumulate(lasted, out=lasted)
     np.subtract(tf, lasted, out=lasted)
-    flags[ok] = _grade(lasted, suspect_ns, fail_ns, at_threshold=True)
+    flags[ok] = grade(lasted, suspect_ns, fail_ns, at_threshold=True)
     return flags

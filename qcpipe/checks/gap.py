@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _validate as v
-from ._windows import as_ns, check_non_decreasing
+from .. import arrays as v
+from ..arrays import as_ns, check_non_decreasing
 from .flags import MISSING, PASS, SUSPECT
 
 #: dtype of the array returned by :func:`find_gaps`.

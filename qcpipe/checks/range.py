@@ -7,8 +7,9 @@ from collections.abc import Iterable, Sequence
 
 import numpy as np
 
-from . import _validate as v
-from ._windows import as_ns, blocks
+from .. import arrays as v
+from ..arrays import as_ns
+from .windows import blocks
 from .flags import MISSING, NOT_EVALUATED, PASS, SUSPECT
 
 

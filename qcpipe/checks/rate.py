@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _validate as v
-from ._series import series
-from ._windows import (
+from .. import arrays as v
+from ..arrays import series
+from .windows import (
     blocks,
     constant_windows,
     distinct_times,

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _validate as v
-from ._series import series
-from ._windows import blocks, reference_value, running_sums, window_bounds
-from .flags import MISSING, NOT_EVALUATED, _grade
+from .. import arrays as v
+from ..arrays import series
+from .windows import blocks, reference_value, running_sums, window_bounds
+from .flags import MISSING, NOT_EVALUATED, grade
 
 
 def spike_flags(
@@ -88,7 +88,7 @@ def spike_flags(
             d /= k
             np.subtract(xz[b], d, out=d)
         np.abs(d, out=d)
-        f = _grade(d, suspect, fail)
+        f = grade(d, suspect, fail)
         f[k < min_neighbours] = NOT_EVALUATED
         np.copyto(f, MISSING, where=~here)
         flags[b] = f

@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _validate as v
-from ._windows import as_ns, blocks, check_non_decreasing, previous_valid_index
+from .. import arrays as v
+from ..arrays import as_ns, check_non_decreasing
+from .windows import blocks, previous_valid_index
 from .flags import FAIL, MISSING, NOT_EVALUATED, PASS, SUSPECT
 
 EMERSED = 0
@@ -43,7 +44,7 @@ def _state(state, *, func: str) -> np.ndarray:
     return s.astype(np.int8, copy=False)
 
 
-def _times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray]:
+def times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray]:
     t = as_ns(times, func=func)
     s = _state(state, func=func)
     v.same_shape(s, t, func=func, names=("state", "times"))
@@ -114,7 +115,7 @@ def immersion_consistency_flags(
     Definition: common practice, no source. Cost O(n).
     """
     func = "immersion_consistency_flags"
-    t, s = _times_and_state(times, state, func=func)
+    t, s = times_and_state(times, state, func=func)
     lv = v.as_1d(v.as_values(level, func=func, name="level"), func=func, name="level")
     v.same_shape(lv, t, func=func, names=("level", "times"))
     z = v.real_number(elevation_m, func=func, name="elevation_m")
@@ -198,7 +199,7 @@ def companion_gating_flags(times, state, *, settle_s: float) -> np.ndarray:
     Definition: common practice, no source. Cost O(n).
     """
     func = "companion_gating_flags"
-    t, s = _times_and_state(times, state, func=func)
+    t, s = times_and_state(times, state, func=func)
     settle = v.positive(settle_s, func=func, name="settle_s", allow_zero=True)
     settle_ns = 0 if settle == 0 else v.duration_ns(settle, func=func, name="settle_s")
 

@@ -73,9 +73,9 @@ def _key_path(loc: tuple, data: Any) -> str:
             label = f"[{item}]"
             try:
                 entry = node[item]
-                ident = entry.get("id") or entry.get("serial") if isinstance(entry, dict) else None
-                if ident:
-                    label = f"[{item}] (id {shown(repr(ident))})"
+                field = next((k for k in ("id", "serial", "name") if isinstance(entry, dict) and entry.get(k)), None)
+                if field:
+                    label = f"[{item}] ({'name' if field == 'name' else 'id'} {shown(repr(entry[field]))})"
                 node = entry
             except (IndexError, KeyError, TypeError, AttributeError):
                 node = None

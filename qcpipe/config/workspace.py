@@ -74,7 +74,7 @@ class Workspace:
             if st not in known:
                 raise ConfigError(f"{rules.path}: key station.{st}: station {st!r} is not in the register "
                                   f"{register.path}; correct the station id or remove the override")
-        from ..tide.harmonics import load_constituents
+        from .constituents import load_constituents
         for i, site in enumerate(register.site):
             path = register.constituents_path(site.id)
             if path is not None:

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
-import hashlib
 from dataclasses import dataclass
 from pathlib import Path
+
+from ..files import sha256_of_file
 
 
 @dataclass(frozen=True)
@@ -16,14 +17,6 @@ class RawFile:
     @property
     def name(self) -> str:
         return self.path.name
-
-
-def sha256_of_file(path: str | Path, chunk: int = 1 << 20) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while block := fh.read(chunk):
-            h.update(block)
-    return h.hexdigest()
 
 
 def discover_files(inbox: str | Path, known: set[str]) -> tuple[list[RawFile], dict[str, int | list]]:

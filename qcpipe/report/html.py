@@ -73,7 +73,8 @@ import numpy as np
 
 from ..archive.catalog import Catalog
 from ..archive.ncio import read_attrs, read_dataset
-from ..archive.store import atomic_path, safe_file_name
+from ..archive.store import safe_file_name
+from ..files import atomic_path
 from . import plots
 
 FLAG_KEYS = ("1", "2", "3", "4", "9")

@@ -14,15 +14,12 @@ from .harmonics import (
     astronomical_arguments_from_days,
     days_from_epoch,
     equilibrium_arguments,
-    load_constituents,
     predict_tide,
-    write_constituents,
 )
 
 __all__ = [
     "CONSTITUENTS", "PRIORITY", "AstronomicalArguments", "Constituent", "HarmonicConstant",
     "TideConstants", "TideFit", "astronomical_arguments", "astronomical_arguments_from_days",
     "constituent", "days_from_epoch", "equilibrium_arguments", "fit_constituents",
-    "load_constituents", "nodal_corrections", "predict_tide", "select_constituents",
-    "write_constituents",
+    "nodal_corrections", "predict_tide", "select_constituents",
 ]

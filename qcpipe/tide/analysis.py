@@ -19,12 +19,11 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
 from .constituents import CONSTITUENTS, PRIORITY, constituent
-from .harmonics import HarmonicConstant, TideConstants, _day_blocks, days_from_epoch, write_constituents
+from .harmonics import HarmonicConstant, TideConstants, day_blocks, days_from_epoch
 
 _CHUNK = 32_768
 _PRIORITY_RANK = {name: i for i, name in enumerate(PRIORITY)}
@@ -120,10 +119,6 @@ class TideFit:
                              constituents=self.constants, source=source,
                              latitude_deg=self.latitude_deg)
 
-    def to_toml(self, path, *, site: str = "", datum: str = "", source: str | None = None) -> Path:
-        """Write the fit as a site constituents file read by :func:`qcpipe.tide.load_constituents`."""
-        return write_constituents(path, self.to_constants(site=site, datum=datum, source=source))
-
 
 def fit_constituents(times, heights, *, latitude: float | None = None, constituents=None,
                      min_record_days: float = 15.0, rayleigh: float = 1.0) -> TideFit:
@@ -185,7 +180,7 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
                          "use a longer record or fewer constituents")
 
     if k:
-        b = _day_blocks(names, days)
+        b = day_blocks(names, days)
     normal = np.zeros((npar, npar))
     rhs = np.zeros(npar)
     for start in range(0, days.size, _CHUNK):

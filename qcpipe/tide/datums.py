@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from qcpipe.checks import _validate as v
-from qcpipe.checks._series import series
+from .. import arrays as v
+from ..arrays import series
 from qcpipe.tide.events import TideEvents, high_low_waters, tidal_day_classes
 
 _NS = 1_000_000_000

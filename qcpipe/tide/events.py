@@ -17,9 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from qcpipe.checks import _validate as v
-from qcpipe.checks._series import series
-from qcpipe.checks._windows import as_ns
+from .. import arrays as v
+from ..arrays import as_ns, series
 
 #: Mean lunar (tidal) day in hours, 24.8412 h [Schureman1958]_ (value from memory).
 TIDAL_DAY_H = 24.8412

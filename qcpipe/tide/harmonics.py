@@ -27,18 +27,12 @@ corrections, never one value for the whole period.
 
 from __future__ import annotations
 
-import json
 import math
-import os
-import tempfile
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
-import pydantic
 
-from ..errors import ConfigError
 from .constituents import ARGUMENT_RATES, CONSTITUENTS, constituent, nodal_corrections
 
 #: Greenwich mean noon, 1899 December 31: origin of Schureman's polynomials
@@ -79,7 +73,7 @@ class HarmonicConstant:
 
 @dataclass(frozen=True)
 class TideConstants:
-    """The contents of a site constituents file (see :func:`load_constituents`)."""
+    """Harmonic constants of a site (file format: :mod:`qcpipe.config.constituents`)."""
 
     site: str
     datum: str
@@ -174,7 +168,7 @@ def equilibrium_arguments(names, times) -> tuple[np.ndarray, np.ndarray]:
     """
     names = _names(names)
     days = np.atleast_1d(days_from_epoch(times))
-    blocks = _day_blocks(names, days)
+    blocks = day_blocks(names, days)
     vu = np.mod(np.rad2deg(blocks.dt_hours[:, None] * blocks.speed_rad[None, :]
                            + blocks.vu_rad[blocks.index]), 360.0)
     return vu, blocks.f[blocks.index]
@@ -189,7 +183,7 @@ class _Blocks:
     speed_rad: np.ndarray  # (k,) radians per hour
 
 
-def _day_blocks(names: list[str], days: np.ndarray) -> _Blocks:
+def day_blocks(names: list[str], days: np.ndarray) -> _Blocks:
     """Group finite ``days`` by UTC day (reference 12:00 UTC) and evaluate V + u and f."""
     ref = np.round(days)                 # days count from noon: round() gives that day's noon
     uniq, index = np.unique(ref, return_inverse=True)
@@ -198,7 +192,7 @@ def _day_blocks(names: list[str], days: np.ndarray) -> _Blocks:
     return _Blocks(index.reshape(-1), (days - ref) * 24.0, np.deg2rad(V + u), f, np.deg2rad(speeds))
 
 
-def _constants_list(constituents) -> list[HarmonicConstant]:
+def constants_list(constituents) -> list[HarmonicConstant]:
     """Normalise a mapping {name: (amplitude_m, phase_deg)} or a sequence of
     HarmonicConstant / (name, amplitude_m, phase_deg) into a checked list."""
     if isinstance(constituents, TideConstants):
@@ -256,7 +250,7 @@ def predict_tide(times, constituents, *, mean_level: float = 0.0) -> np.ndarray:
     with ``f, u`` per UTC day (module notes).  Computed in blocks of
     32768 samples x constituents.
     """
-    consts = _constants_list(constituents)
+    consts = constants_list(constituents)
     days = np.atleast_1d(days_from_epoch(times)).astype(float).reshape(-1)
     out = np.full(days.shape, np.nan)
     ok = np.isfinite(days)
@@ -268,7 +262,7 @@ def predict_tide(times, constituents, *, mean_level: float = 0.0) -> np.ndarray:
     names = [c.name for c in consts]
     amp = np.array([c.amplitude_m for c in consts])
     g = np.deg2rad([c.phase_deg for c in consts])
-    b = _day_blocks(names, days[ok])
+    b = day_blocks(names, days[ok])
     phase0 = b.vu_rad - g[None, :]           # (nblocks, k)
     famp = b.f * amp[None, :]
     valid = np.empty(b.index.size)
@@ -282,182 +276,3 @@ def predict_tide(times, constituents, *, mean_level: float = 0.0) -> np.ndarray:
         valid[sl] = arg.sum(axis=1)
     out[ok] = valid + mean_level
     return out
-
-
-# ---------------------------------------------------------------- constituents file
-
-class _ConstituentEntry(pydantic.BaseModel):
-    model_config = pydantic.ConfigDict(extra="forbid")
-
-    name: str
-    amplitude_m: float = pydantic.Field(ge=0.0, allow_inf_nan=False)
-    phase_deg: float = pydantic.Field(allow_inf_nan=False)
-    amplitude_se_m: float | None = pydantic.Field(default=None, ge=0.0, allow_inf_nan=False)
-    phase_se_deg: float | None = pydantic.Field(default=None, ge=0.0, allow_inf_nan=False)
-
-    @pydantic.field_validator("name")
-    @classmethod
-    def _known(cls, value: str) -> str:
-        key = value.strip().upper()
-        if key not in CONSTITUENTS:
-            import difflib
-
-            close = difflib.get_close_matches(key, list(CONSTITUENTS), n=3)
-            hint = f" (closest: {', '.join(close)})" if close else ""
-            raise ValueError(f"unknown constituent {value!r}{hint}; use a name listed in "
-                             "qcpipe.tide.CONSTITUENTS")
-        return key
-
-
-class _TideSection(pydantic.BaseModel):
-    model_config = pydantic.ConfigDict(extra="forbid")
-
-    site: str
-    datum: str
-    mean_level_m: float = pydantic.Field(allow_inf_nan=False)
-    source: str = ""
-    epoch_note: str = "Greenwich phase lags, UTC"
-    latitude_deg: float | None = pydantic.Field(default=None, ge=-90.0, le=90.0)
-    constituent: list[_ConstituentEntry] = pydantic.Field(min_length=1)
-
-
-class _TideFile(pydantic.BaseModel):
-    model_config = pydantic.ConfigDict(extra="forbid")
-
-    tide: _TideSection
-
-
-_HINTS = {
-    "missing": "add this key",
-    "extra_forbidden": "remove it or check its spelling",
-    "greater_than_equal": "must be >= {ge}",
-    "less_than_equal": "must be <= {le}",
-    "too_short": "give at least one [[tide.constituent]] table",
-    "finite_number": "give a finite number",
-}
-
-
-def _location(loc: tuple, data: dict) -> str:
-    """'[[tide.constituent]] entry 3 (name 'M2'), key amplitude_m' or 'key tide.site'."""
-    if len(loc) >= 3 and loc[:2] == ("tide", "constituent") and isinstance(loc[2], int):
-        i = loc[2]
-        try:
-            name = data["tide"]["constituent"][i].get("name")
-        except (KeyError, IndexError, TypeError, AttributeError):
-            name = None
-        where = f"[[tide.constituent]] entry {i + 1}" + (f" (name {name!r})" if name else "")
-        rest = ".".join(str(x) for x in loc[3:])
-        return f"{where}, key {rest}" if rest else where
-    return "key " + (".".join(str(x) for x in loc) or "(top level)")
-
-
-def load_constituents(path) -> TideConstants:
-    """Read a site constituents file (TOML) into :class:`TideConstants`.
-
-    The file holds one ``[tide]`` table (``site``, ``datum``, ``mean_level_m``,
-    optional ``source``, ``epoch_note``, ``latitude_deg``) and one
-    ``[[tide.constituent]]`` table per constituent (``name``, ``amplitude_m`` >= 0,
-    ``phase_deg`` Greenwich phase lag in degrees referred to UTC, optional
-    ``amplitude_se_m`` and ``phase_se_deg``).  Names are case-insensitive and
-    stored upper-case.
-
-    Raises
-    ------
-    qcpipe.errors.ConfigError
-        One line naming the file, the key or ``[[tide.constituent]]`` entry (1-based)
-        and name, what is wrong and how to fix it.
-    """
-    from ..config._load import read_toml
-
-    path = Path(path)
-    data = read_toml(path)
-    try:
-        model = _TideFile.model_validate(data)
-    except pydantic.ValidationError as exc:
-        errs = exc.errors(include_url=False)
-        first = errs[0]
-        where = _location(tuple(first["loc"]), data)
-        msg = first["msg"].removeprefix("Value error, ")
-        kind = first.get("type", "")
-        bad = ""
-        if kind not in ("missing", "value_error") and not isinstance(first.get("input"), (dict, list)):
-            bad = f" (got {first.get('input')!r})"
-        hint = _HINTS.get(kind, "correct the value").format(**(first.get("ctx") or {}))
-        if kind == "greater_than_equal" and where.endswith("amplitude_m"):
-            hint += ": give the size and add 180 to phase_deg"
-        more = f" (and {len(errs) - 1} more)" if len(errs) > 1 else ""
-        tail = "" if kind == "value_error" else f"; {hint}"
-        raise ConfigError(f"{path}: {where}: {msg}{bad}{tail}{more}") from None
-    first_at: dict[str, int] = {}
-    for i, entry in enumerate(model.tide.constituent):
-        if entry.name in first_at:
-            raise ConfigError(
-                f"{path}: [[tide.constituent]] entry {i + 1} (name {entry.name!r}): duplicate of "
-                f"entry {first_at[entry.name] + 1}; keep one entry per constituent")
-        first_at[entry.name] = i
-    t = model.tide
-    return TideConstants(
-        site=t.site, datum=t.datum, mean_level_m=t.mean_level_m, source=t.source,
-        epoch_note=t.epoch_note, latitude_deg=t.latitude_deg,
-        constituents=tuple(HarmonicConstant(e.name, e.amplitude_m, e.phase_deg,
-                                            e.amplitude_se_m, e.phase_se_deg)
-                           for e in t.constituent))
-
-
-def _toml_str(value: str) -> str:
-    return json.dumps(str(value), ensure_ascii=False).replace("\x7f", "\\u007f")
-
-
-def _toml_float(value: float) -> str:
-    value = float(value)
-    if not math.isfinite(value):
-        raise ValueError(f"cannot write non-finite number {value!r} to a constituents file")
-    return repr(value)
-
-
-def write_constituents(path, constants: TideConstants) -> Path:
-    """Write ``constants`` as a site constituents file (TOML) atomically.
-
-    The text goes to a temporary file in the same folder, is flushed to disk and
-    then renamed over ``path`` (``os.replace``), so a reader sees the old file or
-    the new one, never a part.  Floats are written with ``repr`` so that
-    :func:`load_constituents` gives back the same values.
-    """
-    path = Path(path)
-    consts = _constants_list(constants.constituents)
-    if not consts:
-        raise ValueError("a constituents file needs at least one constituent")
-    lines = [
-        "# Tidal harmonic constants: Greenwich phase lags, amplitudes in metres.",
-        "[tide]",
-        f"site = {_toml_str(constants.site)}",
-        f"datum = {_toml_str(constants.datum)}",
-        f"mean_level_m = {_toml_float(constants.mean_level_m)}",
-        f"source = {_toml_str(constants.source)}",
-        f"epoch_note = {_toml_str(constants.epoch_note)}",
-    ]
-    if constants.latitude_deg is not None:
-        lines.append(f"latitude_deg = {_toml_float(constants.latitude_deg)}")
-    for c in consts:
-        lines += ["", "[[tide.constituent]]", f"name = {_toml_str(c.name)}",
-                  f"amplitude_m = {_toml_float(c.amplitude_m)}",
-                  f"phase_deg = {_toml_float(c.phase_deg)}"]
-        if c.amplitude_se_m is not None:
-            lines.append(f"amplitude_se_m = {_toml_float(c.amplitude_se_m)}")
-        if c.phase_se_deg is not None:
-            lines.append(f"phase_se_deg = {_toml_float(c.phase_se_deg)}")
-    text = "\n".join(lines) + "\n"
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    return path

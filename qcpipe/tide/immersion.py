@@ -25,9 +25,8 @@ from typing import NamedTuple
 import numpy as np
 import scipy.constants
 
-from qcpipe.checks import _validate as v
-from qcpipe.checks._series import series
-from qcpipe.checks._windows import as_ns, check_non_decreasing
+from .. import arrays as v
+from ..arrays import as_ns, check_non_decreasing, series
 
 EMERSED, IMMERSED, UNKNOWN = np.int8(0), np.int8(1), np.int8(2)
 

@@ -29,9 +29,9 @@ from typing import NamedTuple
 
 import numpy as np
 
-from qcpipe.checks import _validate as v
-from qcpipe.checks._windows import as_ns, check_non_decreasing
-from qcpipe.checks.tide import _times_and_state
+from .. import arrays as v
+from ..arrays import as_ns, check_non_decreasing
+from qcpipe.checks.tide import times_and_state
 
 _NS = 1e9
 #: Scale factor making the median absolute deviation a consistent estimate of
@@ -208,7 +208,7 @@ def observed_transitions(times, state) -> Crossings:
     sample interval on average: 2.5 min at 5-min sampling, a bias in every
     clock offset.) Definition: common practice, no source. Cost O(n).
     """
-    t, s = _times_and_state(times, state, func="observed_transitions")
+    t, s = times_and_state(times, state, func="observed_transitions")
     known = s != 2
     t, s = t[known], s[known]
     step = np.flatnonzero(s[1:] != s[:-1])
@@ -385,7 +385,7 @@ def wet_dry_lag(
     Definition: common practice, no source.
     """
     func = "wet_dry_lag"
-    t, s = _times_and_state(times, state, func=func)
+    t, s = times_and_state(times, state, func=func)
     rt, rx = _ref_series(ref_times, ref_level, func=func, names=("ref_times", "ref_level"))
     z = v.real_number(elevation_m, func=func, name="elevation_m")
     max_lag = v.positive(max_lag_s, func=func, name="max_lag_s")

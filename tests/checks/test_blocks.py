@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from qcpipe import checks
-from qcpipe.checks import _windows
+from qcpipe.checks import windows as _windows
 from qcpipe.checks.tide import immersion_consistency_flags
 
 S = 1_000_000_000

@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from qcpipe.checks._windows import (
+from qcpipe.checks.windows import (
     _equal_run_edge,
     constant_windows,
     last_change_before_stop,

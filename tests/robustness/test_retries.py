@@ -1,7 +1,7 @@
 """Transient I/O errors are tried again (a bounded number of times); permanent ones are not.
 
 The errors are injected at the archive's real write points (``QCPIPE_TEST_IO_ERROR``,
-see ``qcpipe/archive/faults.py``) of a real nightly run with Prefect's local runner."""
+see ``qcpipe/faults.py``) of a real nightly run with Prefect's local runner."""
 
 from __future__ import annotations
 

@@ -11,7 +11,8 @@ import warnings
 import numpy as np
 import pytest
 
-from qcpipe.tide import CONSTITUENTS, fit_constituents, load_constituents, predict_tide, select_constituents
+from qcpipe.config.constituents import load_constituents, write_constituents
+from qcpipe.tide import CONSTITUENTS, fit_constituents, predict_tide, select_constituents
 from qcpipe.tide.analysis import RayleighWarning
 
 MAJOR8 = {  # amplitude m, Greenwich phase deg: chosen values of a mid-latitude shore site
@@ -138,7 +139,7 @@ def test_fit_writes_a_file_the_predictor_reads(tmp_path):
     t = _hourly("2026-01-01", 40)
     h = predict_tide(t, MAJOR8, mean_level=2.0)
     fit = fit_constituents(t, h, constituents=["M2", "S2", "N2", "K1", "O1", "Q1"], latitude=-41.0)
-    path = fit.to_toml(tmp_path / "fit.toml", site="Kelpwhistle Cove", datum="CD")
+    path = write_constituents(tmp_path / "fit.toml", fit.to_constants(site="Kelpwhistle Cove", datum="CD"))
     loaded = load_constituents(path)
     assert loaded.latitude_deg == -41.0 and loaded.site == "Kelpwhistle Cove"
     assert "40.0 days" in loaded.source

@@ -9,23 +9,17 @@ nodal corrections).
 from __future__ import annotations
 
 import csv
-import os
-import re
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from qcpipe.errors import ConfigError
 from qcpipe.tide import (
     CONSTITUENTS,
     HarmonicConstant,
-    TideConstants,
     astronomical_arguments,
     equilibrium_arguments,
-    load_constituents,
     predict_tide,
-    write_constituents,
 )
 
 REFERENCE = Path(__file__).resolve().parents[1] / "reference" / "tide"
@@ -190,74 +184,3 @@ def test_prediction_accepts_sequences_and_gives_nan_for_nat():
 def test_prediction_rejects_bad_constituents(constituents, match):
     with pytest.raises(ValueError, match=match):
         predict_tide(np.array(["2026-01-01"], dtype="datetime64[s]"), constituents)
-
-
-# ---------------------------------------------------------------- constituents file
-
-def _constants() -> TideConstants:
-    return TideConstants(
-        site="Kelpwhistle Cove", datum="chart datum", mean_level_m=2.0,
-        constituents=(HarmonicConstant("M2", 1.6, 123.0, 0.001, 0.1),
-                      HarmonicConstant("K1", 0.1 + 0.2, 1.0 / 3.0)),
-        source='fit of 2025 "test" record', latitude_deg=-41.5)
-
-
-def test_constituents_file_round_trip(tmp_path):
-    path = tmp_path / "site.toml"
-    write_constituents(path, _constants())
-    assert load_constituents(path) == _constants()
-    assert [p.name for p in tmp_path.iterdir()] == ["site.toml"]  # no temp file left
-
-
-def test_constituents_file_is_replaced_atomically(tmp_path, monkeypatch):
-    path = tmp_path / "site.toml"
-    write_constituents(path, _constants())
-    before = path.read_bytes()
-
-    def fail(*args):
-        raise OSError("disk full")
-
-    monkeypatch.setattr(os, "replace", fail)
-    changed = TideConstants(**{**_constants().__dict__, "mean_level_m": 3.0})
-    with pytest.raises(OSError, match="disk full"):
-        write_constituents(path, changed)
-    assert path.read_bytes() == before
-    assert [p.name for p in tmp_path.iterdir()] == ["site.toml"]
-
-
-def test_example_file_of_the_brief_loads(tmp_path):
-    path = tmp_path / "site.toml"
-    path.write_text('[tide]\nsite = "x"\ndatum = "CD"\nmean_level_m = 2.0\nsource = "s"\n'
-                    'epoch_note = "Greenwich phase lags, UTC"\n\n[[tide.constituent]]\n'
-                    'name = "m2"\namplitude_m = 1.6\nphase_deg = 123.0\n')
-    got = load_constituents(path)
-    assert got.constituents == (HarmonicConstant("M2", 1.6, 123.0),)
-    assert got.mean_level_m == 2.0
-
-
-_HEAD = '[tide]\nsite = "x"\ndatum = "CD"\nmean_level_m = 2.0\n'
-
-
-@pytest.mark.parametrize("body, message", [
-    ('[[tide.constituent]]\nname = "M2"\namplitude_m = 1.0\nphase_deg = 0.0\n'
-     '[[tide.constituent]]\nname = "MX2"\namplitude_m = 0.1\nphase_deg = 0.0\n',
-     r"\[\[tide.constituent\]\] entry 2 \(name 'MX2'\), key name: unknown constituent 'MX2' "
-     r"\(closest: .*M2.*\); use a name listed in qcpipe.tide.CONSTITUENTS$"),
-    ('[[tide.constituent]]\nname = "M2"\namplitude_m = -0.5\nphase_deg = 0.0\n',
-     r"\[\[tide.constituent\]\] entry 1 \(name 'M2'\), key amplitude_m: .*\(got -0.5\); must be >= 0.0: "
-     r"give the size and add 180 to phase_deg$"),
-    ('[[tide.constituent]]\nname = "M2"\namplitude_m = 1.0\nphase_deg = 0.0\n'
-     '[[tide.constituent]]\nname = "S2"\namplitude_m = 0.3\nphase_deg = 0.0\n'
-     '[[tide.constituent]]\nname = "m2"\namplitude_m = 0.5\nphase_deg = 1.0\n',
-     r"\[\[tide.constituent\]\] entry 3 \(name 'M2'\): duplicate of entry 1; keep one entry per constituent$"),
-    ('[[tide.constituent]]\nname = "M2"\namplitude = 1.0\nphase_deg = 0.0\n',
-     r"\[\[tide.constituent\]\] entry 1 \(name 'M2'\), key amplitude_m: Field required; add this key"),
-    ('',
-     r"key tide.constituent: Field required; add this key$"),
-], ids=["unknown-name", "negative-amplitude", "duplicate", "misspelt-key", "no-constituents"])
-def test_constituents_file_error_messages(tmp_path, body, message):
-    path = tmp_path / "site.toml"
-    path.write_text(_HEAD + body)
-    with pytest.raises(ConfigError, match="^" + re.escape(f"{path}: ") + message) as info:
-        load_constituents(path)
-    assert "\n" not in str(info.value)

@@ -1,10 +1,10 @@
-"""Time-window helpers for the checks (internal).
+"""Time-window helpers of the checks.
 
 Every helper is O(n) in the series length, whatever the window: window edges come
 from :func:`numpy.searchsorted` on the sorted times, window statistics from
 differences of cumulative sums. There is no loop over samples or over windows.
 
-Times are int64 nanoseconds (see :func:`as_ns`); durations reach the helpers as
+Times are int64 nanoseconds (see :func:`qcpipe.arrays.as_ns`); durations reach the helpers as
 int64 nanoseconds. NaN and infinite values are excluded from window statistics.
 
 Numerical note: window sums are differences of running sums. To keep the
@@ -22,54 +22,6 @@ from __future__ import annotations
 
 import numpy as np
 
-
-def as_ns(times, *, func: str = "as_ns", name: str = "times") -> np.ndarray:
-    """Times as a 1-D int64 array of nanoseconds since 1970-01-01.
-
-    Parameters
-    ----------
-    times : array_like of numpy.datetime64 (any unit) or of int
-        Datetimes, or integer nanoseconds since 1970-01-01 (time zone as given;
-        qcpipe uses UTC).
-
-    Returns
-    -------
-    numpy.ndarray of int64
-    """
-    arr = np.asarray(times)
-    if arr.ndim != 1:
-        raise ValueError(f"{func}: {name} must be one-dimensional; found shape {arr.shape}")
-    kind = arr.dtype.kind
-    if kind == "M":
-        nat = np.isnat(arr)
-        if nat.any():
-            raise ValueError(
-                f"{func}: {name}[{int(np.argmax(nat))}] is NaT; every sample needs a time "
-                "(drop records without a time first)"
-            )
-        return arr.astype("datetime64[ns]", copy=False).view(np.int64)
-    if kind in "iu":
-        if kind == "u" and arr.size and arr.max() > np.iinfo(np.int64).max:
-            raise ValueError(f"{func}: {name} holds values beyond the int64 nanosecond range")
-        return arr.astype(np.int64, copy=False)
-    raise ValueError(
-        f"{func}: {name} has dtype {arr.dtype}; expected numpy datetime64 or "
-        "int64 nanoseconds since 1970-01-01"
-    )
-
-
-def check_non_decreasing(t: np.ndarray, *, func: str, name: str = "times") -> None:
-    """Raise ValueError naming the first index where `t` steps backward."""
-    if t.size < 2:
-        return
-    back = np.less(t[1:], t[:-1])
-    if back.any():
-        i = int(np.argmax(back)) + 1
-        raise ValueError(
-            f"{func}: {name} must be non-decreasing; {name}[{i}] = "
-            f"{np.datetime64(int(t[i]), 'ns')} is earlier than {name}[{i - 1}] = "
-            f"{np.datetime64(int(t[i - 1]), 'ns')}; sort the records by time first"
-        )
 
 
 def window_bounds(

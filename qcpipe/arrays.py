@@ -1,4 +1,6 @@
-"""Shared argument checks for the QC check functions (internal)."""
+"""Array helpers shared by the checks and the tide maths: argument checks, times as int64 ns,
+a sorted series.  Every function raises ValueError naming the calling function, the argument and
+what is expected."""
 
 from __future__ import annotations
 
@@ -88,3 +90,61 @@ def ordered(low: float, high: float, *, func: str, names: tuple[str, str], stric
             f"{func}: {names[0]} = {low!r} and {names[1]} = {high!r}; "
             f"expected {names[0]} {rel} {names[1]} (are the limits swapped?)"
         )
+
+
+def as_ns(times, *, func: str = "as_ns", name: str = "times") -> np.ndarray:
+    """Times as a 1-D int64 array of nanoseconds since 1970-01-01.
+
+    Parameters
+    ----------
+    times : array_like of numpy.datetime64 (any unit) or of int
+        Datetimes, or integer nanoseconds since 1970-01-01 (time zone as given;
+        qcpipe uses UTC).
+
+    Returns
+    -------
+    numpy.ndarray of int64
+    """
+    arr = np.asarray(times)
+    if arr.ndim != 1:
+        raise ValueError(f"{func}: {name} must be one-dimensional; found shape {arr.shape}")
+    kind = arr.dtype.kind
+    if kind == "M":
+        nat = np.isnat(arr)
+        if nat.any():
+            raise ValueError(
+                f"{func}: {name}[{int(np.argmax(nat))}] is NaT; every sample needs a time "
+                "(drop records without a time first)"
+            )
+        return arr.astype("datetime64[ns]", copy=False).view(np.int64)
+    if kind in "iu":
+        if kind == "u" and arr.size and arr.max() > np.iinfo(np.int64).max:
+            raise ValueError(f"{func}: {name} holds values beyond the int64 nanosecond range")
+        return arr.astype(np.int64, copy=False)
+    raise ValueError(
+        f"{func}: {name} has dtype {arr.dtype}; expected numpy datetime64 or "
+        "int64 nanoseconds since 1970-01-01"
+    )
+
+
+def check_non_decreasing(t: np.ndarray, *, func: str, name: str = "times") -> None:
+    """Raise ValueError naming the first index where `t` steps backward."""
+    if t.size < 2:
+        return
+    back = np.less(t[1:], t[:-1])
+    if back.any():
+        i = int(np.argmax(back)) + 1
+        raise ValueError(
+            f"{func}: {name} must be non-decreasing; {name}[{i}] = "
+            f"{np.datetime64(int(t[i]), 'ns')} is earlier than {name}[{i - 1}] = "
+            f"{np.datetime64(int(t[i - 1]), 'ns')}; sort the records by time first"
+        )
+
+
+def series(values, times, *, func: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(x float64, t int64 ns, ok = finite x) for a 1-D series sorted by time."""
+    x = as_1d(as_values(values, func=func), func=func, name="values")
+    t = as_ns(times, func=func)
+    same_shape(x, t, func=func, names=("values", "times"))
+    check_non_decreasing(t, func=func)
+    return x, t, np.isfinite(x)
