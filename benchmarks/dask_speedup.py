@@ -39,7 +39,7 @@ UNKNOWN_SERIAL = "TL7-20977"        # the demo's file of an unregistered logger:
 
 DRIVER = """
 import json, sys, time
-from qcpipe.orchestration import configure_prefect
+from qcpipe.flows.prefect_settings import configure_prefect
 configure_prefect(sys.argv[2])
 from qcpipe.flows.nightly import nightly_flow_for
 address = sys.argv[3] or None

@@ -459,10 +459,10 @@ TARGET_CHUNKED_MB = 2048.0
 
 
 def case_chunked() -> dict:
-    """One variable, a year at 1 Hz, written to NetCDF in blocks, then QC'd chunk by chunk (qcpipe.chunked)."""
+    """One variable, a year at 1 Hz, written to NetCDF in blocks, then QC'd chunk by chunk (qcpipe.long_series, core checks)."""
     import netCDF4
 
-    from qcpipe.chunked import qc_netcdf_chunked
+    from qcpipe.long_series import core_qc_netcdf
     from qcpipe.config.rules import VariableRules
 
     rules = VariableRules.model_validate({
@@ -490,7 +490,7 @@ def case_chunked() -> dict:
         nc.close()
         write_rss = process_usage()["peak_rss_mb"]
         start = time.perf_counter()
-        counts = qc_netcdf_chunked(src, "temperature", rules, Path(tmp) / "flags.nc", block=block)
+        counts = core_qc_netcdf(src, "temperature", rules, Path(tmp) / "flags.nc", block=block)
         qc_s = time.perf_counter() - start
     return {"samples": CHUNKED_SAMPLES, "qc_s": qc_s, "rss_after_writing_mb": write_rss,
             "flag_counts": {k: {str(a): b for a, b in v.items()} for k, v in counts.items()}}

@@ -108,7 +108,7 @@ def runs_on(dask_address: str | None) -> bool:
 
 def env_for_workers(api_url: str | None = None) -> dict[str, str]:
     """Environment for Dask worker processes started for qcpipe: the quiet Prefect defaults (and the API URL)."""
-    from qcpipe.orchestration import DEFAULTS
+    from qcpipe.flows.prefect_settings import DEFAULTS
 
     env = {k: os.environ.get(k, v) for k, v in DEFAULTS.items()}
     if api_url:

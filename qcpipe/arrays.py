@@ -148,3 +148,46 @@ def series(values, times, *, func: str) -> tuple[np.ndarray, np.ndarray, np.ndar
     same_shape(x, t, func=func, names=("values", "times"))
     check_non_decreasing(t, func=func)
     return x, t, np.isfinite(x)
+
+
+#: immersion states of a sample, the one definition: 0 emersed, 1 immersed, 2 unknown
+EMERSED, IMMERSED, UNKNOWN = np.int8(0), np.int8(1), np.int8(2)
+STATES = (EMERSED, IMMERSED, UNKNOWN)
+
+
+def as_states(state, *, func: str, n: int | None = None) -> np.ndarray:
+    """`state` as a 1-D int8 array holding only immersion states (0, 1, 2); ``n``: its expected length."""
+    s = np.asarray(state)
+    if s.size == 0 and s.ndim == 1:
+        s = s.astype(np.int8)
+    elif s.dtype.kind not in "iu":
+        raise ValueError(
+            f"{func}: state has dtype {s.dtype}; expected integer immersion states "
+            "(1 immersed, 0 emersed, 2 unknown)"
+        )
+    as_1d(s, func=func, name="state")
+    if s.size and not (EMERSED <= s.min() and s.max() <= UNKNOWN):   # 0, 1, 2: no gaps in between
+        i = int(np.argmax(~np.isin(s, STATES)))
+        raise ValueError(
+            f"{func}: state[{i}] = {s[i]}; allowed immersion states are "
+            "1 immersed, 0 emersed, 2 unknown"
+        )
+    if n is not None and s.size != n:
+        raise ValueError(f"{func}: times and state must have the same shape; found ({n},) and {s.shape}")
+    return s.astype(np.int8, copy=False)
+
+
+def sorted_ns(times, *, func: str, name: str = "times") -> np.ndarray:
+    """Times as int64 ns (:func:`as_ns`), checked to be non-decreasing."""
+    t = as_ns(times, func=func, name=name)
+    check_non_decreasing(t, func=func, name=name)
+    return t
+
+
+def times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray]:
+    """(int64 ns times, int8 states) of a state series sorted by time, both checked."""
+    t = as_ns(times, func=func)
+    s = as_states(state, func=func)
+    same_shape(s, t, func=func, names=("state", "times"))
+    check_non_decreasing(t, func=func)
+    return t, s

@@ -93,7 +93,7 @@ def _prepare_flow(args):
     import os
 
     from .config import load_workspace
-    from .orchestration import configure_prefect
+    from .flows.prefect_settings import configure_prefect
 
     ws = load_workspace(args.workspace)
     ws.load()   # fail fast with one line before the orchestrator starts
@@ -325,7 +325,7 @@ def _schedule(args) -> int:
 
     from .config import load_workspace
     from .errors import ConfigError
-    from .orchestration import configure_prefect
+    from .flows.prefect_settings import configure_prefect
 
     ws = load_workspace(args.workspace)
     ws.load()

@@ -36,7 +36,7 @@ from .qc import apply_rule_set, flag_counts
 from .archive import products as derived
 from .tidal import SiteTide, analyse_probe, state_from_level
 from .config.constituents import load_constituents
-from .tide.immersion import immersion_at
+from .tide.exposure import immersion_at
 
 
 @dataclass

@@ -14,8 +14,10 @@ import numpy as np
 from .checks import FAIL, MISSING, PASS, SUSPECT
 from .config.rules import ImmersionSettings, TideTiming
 from .convert.sensors import wetness_from_reading
-from .tide import immersion as imm
-from .tide import timing
+from .tide import classify
+from .tide.clock import ClockVerdict, clock_error_estimate
+from .tide.crossings import observed_transitions, predicted_crossings, transition_offsets
+from .tide.elevation import ElevationCheck, effective_elevation, elevation_check
 from .tide.harmonics import TideConstants, predict_tide
 
 _NS = 1_000_000_000
@@ -72,8 +74,8 @@ class ProbeAnalysis:
     bimodality: float
     notices: list[str] = field(default_factory=list)
     attrs: dict = field(default_factory=dict)
-    clock: timing.ClockVerdict | None = None
-    elevation: timing.ElevationCheck | None = None
+    clock: ClockVerdict | None = None
+    elevation: ElevationCheck | None = None
     transition_time: np.ndarray | None = None      # observed transitions (UTC), floods then drains
     transition_kind: np.ndarray | None = None      # 1 flooding, 0 draining
     transition_offset_s: np.ndarray | None = None  # observed minus predicted, NaN if unmatched
@@ -110,8 +112,8 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
         state = np.full(r.size, 2, np.int8)
         quality[ok] = SUSPECT
         return ProbeAnalysis(state, np.full(r.size, np.nan), quality, float("nan"), "none", 0.0, notices, attrs)
-    thr = imm.otsu_threshold(r)
-    score = imm.bimodality_score(r, thr)
+    thr = classify.otsu_threshold(r)
+    score = classify.bimodality_score(r, thr)
     lo, hi = float(np.mean(r[ok & (r < thr)])), float(np.mean(r[ok & (r >= thr)]))
     wet_is_high = probe_reference.water > probe_reference.air if probe_reference else True
     dry_level, wet_level = (lo, hi) if wet_is_high else (hi, lo)
@@ -131,7 +133,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
             notices.append(f"{label}: automatic wet/dry threshold {thr:.4g} differs from the air/water reference "
                            f"midpoint {mid:.4g} by more than {settings.reference_tolerance:.0%} of their distance; "
                            "check the references or the probe")
-    state = imm.classify_immersion(t, r, threshold=thr, hysteresis=settings.hysteresis_fraction * abs(hi - lo),
+    state = classify.classify_immersion(t, r, threshold=thr, hysteresis=settings.hysteresis_fraction * abs(hi - lo),
                                    min_state_s=settings.min_state, wet_is_high=wet_is_high)
     if probe_reference is not None:
         wetness = wetness_from_reading(r, air=probe_reference.air, water=probe_reference.water)
@@ -144,7 +146,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
     result = ProbeAnalysis(state, wetness, quality, float(thr), source, float(score), notices, attrs)
     pred = tide.predicted(t) if tide is not None else None
     if pred is not None and np.count_nonzero(state != 2) > 10:
-        verdict = timing.clock_error_estimate(t, state, t, pred, elevation_m=elevation_m,
+        verdict = clock_error_estimate(t, state, t, pred, elevation_m=elevation_m,
                                               max_lag_s=timing_rules.max_offset,
                                               threshold_s=timing_rules.clock_error_threshold)
         result.clock = verdict
@@ -155,9 +157,9 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
             notices.append(f"{label}: {verdict.message}")
             quality[ok] = np.maximum(quality[ok], SUSPECT)
         shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
-        obs = timing.observed_transitions(t, state)
-        pc = timing.predicted_crossings(t, pred, elevation_m=elevation_m)
-        offs = timing.transition_offsets(obs.flooding, obs.draining, pc.flooding, pc.draining,
+        obs = observed_transitions(t, state)
+        pc = predicted_crossings(t, pred, elevation_m=elevation_m)
+        offs = transition_offsets(obs.flooding, obs.draining, pc.flooding, pc.draining,
                                          max_offset_s=timing_rules.max_offset)
         tt = np.concatenate((obs.flooding, obs.draining))
         order = np.argsort(tt, kind="stable")
@@ -166,9 +168,9 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
                                                  np.zeros(obs.draining.size, np.int8)))[order]
         result.transition_offset_s = np.concatenate((offs.flood_offsets_s, offs.drain_offsets_s))[order]
         ref_level, ref_source = tide.reference(t)
-        eff = timing.effective_elevation(obs.flooding - shift, obs.draining - shift, t, ref_level)
+        eff = effective_elevation(obs.flooding - shift, obs.draining - shift, t, ref_level)
         if eff.n >= 4:
-            check = timing.elevation_check(eff, elevation_m, tolerance_m=timing_rules.elevation_tolerance_m)
+            check = elevation_check(eff, elevation_m, tolerance_m=timing_rules.elevation_tolerance_m)
             result.elevation = check
             attrs.update(effective_elevation_m=_round(eff.median_m, 3), effective_elevation_spread_m=_round(eff.spread_m, 3),
                          effective_elevation_reference=ref_source)

@@ -31,7 +31,7 @@ RUN_ATTRS = ("date_created", "date_modified", "history")
 
 DRIVER = """
 import json, sys, time
-from qcpipe.orchestration import configure_prefect
+from qcpipe.flows.prefect_settings import configure_prefect
 configure_prefect(sys.argv[2])
 from qcpipe.flows.nightly import nightly_flow_for
 address = sys.argv[3] or None

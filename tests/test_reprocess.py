@@ -194,7 +194,7 @@ def test_audit_accounts_for_quarantine_and_detects_tampering(work):
     try:
         r = run_cli("audit", "--workspace", ws(work))
         assert r.returncode == 1
-        assert f"does not match its SHA-256" in r.stdout and victim.name in r.stdout
+        assert "does not match its SHA-256" in r.stdout and victim.name in r.stdout
     finally:
         victim.write_bytes(original)
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
+import numpy as np
 import xarray as xr
 
 from ..files import atomic_path
@@ -57,3 +58,78 @@ def read_attrs(path: str | Path) -> dict:
     with NC_LOCK:
         with netCDF4.Dataset(path) as nc:
             return {k: nc.getncattr(k) for k in nc.ncattrs()}
+
+
+def read_series_blocks(path: str | Path, variable: str, block: int):
+    """Blocks of ``block`` samples of (time datetime64[ns], variable float64) from a NetCDF file,
+    read slice by slice (under the lock for each slice)."""
+    import netCDF4
+
+    with NC_LOCK:
+        nc = netCDF4.Dataset(path)
+    try:
+        tv, vv = nc["time"], nc[variable]
+        n = tv.shape[0]
+        scale = _ns_per_unit(tv.units)
+        epoch = _epoch_ns(tv.units)
+        for a in range(0, n, block):
+            with NC_LOCK:
+                t = np.asarray(tv[a:a + block], dtype=np.float64)
+                v = np.ma.filled(vv[a:a + block].astype(np.float64), np.nan)
+            yield (epoch + np.rint(t * scale).astype(np.int64)).astype("datetime64[ns]"), v
+    finally:
+        with NC_LOCK:
+            nc.close()
+
+
+def _ns_per_unit(units: str) -> float:
+    word = units.split()[0].lower()
+    return {"seconds": 1e9, "second": 1e9, "s": 1e9, "minutes": 60e9, "hours": 3600e9, "days": 86400e9}[word]
+
+
+def _epoch_ns(units: str) -> np.int64:
+    ref = units.split("since", 1)[1].strip().replace("Z", "").replace("+00:00", "")
+    return np.datetime64(ref.replace(" ", "T"), "ns").astype(np.int64)
+
+
+class SeriesWriter:
+    """A time series and its int8 flag variables written slice by slice along an unlimited time
+    dimension, into a temporary file renamed into place when the ``with`` block ends without error."""
+
+    def __init__(self, final: str | Path, variable: str):
+        self.final, self.variable = Path(final), variable
+
+    def __enter__(self) -> SeriesWriter:
+        import netCDF4
+
+        self._atomic = atomic_path(self.final)
+        tmp = self._atomic.__enter__()
+        with NC_LOCK:
+            self._nc = dst = netCDF4.Dataset(tmp, "w", format="NETCDF4")
+            dst.createDimension("time", None)
+            self._time = dst.createVariable("time", "f8", ("time",), chunksizes=(65536,))
+            self._time.units = "seconds since 1970-01-01T00:00:00Z"
+            self._time.standard_name = "time"
+            self._values = dst.createVariable(self.variable, "f8", ("time",), zlib=True, complevel=4,
+                                              chunksizes=(65536,), fill_value=np.nan)
+        self._flags: dict = {}
+        self._n = 0
+        return self
+
+    def append(self, times, values, flags: dict[str, np.ndarray]) -> None:
+        """Append samples (datetime64[ns] times, values) and their flags by check name."""
+        n, m = self._n, len(times)
+        with NC_LOCK:
+            for check, f in flags.items():
+                if check not in self._flags:
+                    self._flags[check] = self._nc.createVariable(f"{self.variable}_qc_{check}", "i1", ("time",),
+                                                                 zlib=True, complevel=4, chunksizes=(65536,))
+                self._flags[check][n:n + m] = f
+            self._time[n:n + m] = np.asarray(times, dtype="datetime64[ns]").astype(np.int64) / 1e9
+            self._values[n:n + m] = values
+        self._n += m
+
+    def __exit__(self, *exc) -> bool:
+        with NC_LOCK:
+            self._nc.close()
+        return self._atomic.__exit__(*exc)

@@ -26,7 +26,7 @@ from ..files import write_text_atomic
 from ..tide.analysis import fit_constituents
 from ..tide.datums import tidal_datums
 from ..tide.events import high_low_waters, tidal_day_classes
-from ..tide.immersion import daily_exposure, exposure_periods
+from ..tide.exposure import daily_exposure, exposure_periods
 from .catalog import utc_now
 from .ncio import read_dataset, write_dataset_atomic
 

@@ -11,45 +11,9 @@ from __future__ import annotations
 import numpy as np
 
 from .. import arrays as v
-from ..arrays import as_ns, check_non_decreasing
+from ..arrays import EMERSED, IMMERSED, UNKNOWN
 from .windows import blocks, previous_valid_index
 from .flags import FAIL, MISSING, NOT_EVALUATED, PASS, SUSPECT
-
-EMERSED = 0
-IMMERSED = 1
-UNKNOWN = 2
-_STATES = (EMERSED, IMMERSED, UNKNOWN)
-
-
-def _state(state, *, func: str) -> np.ndarray:
-    """`state` as a 1-D int8 array holding only 0, 1 and 2."""
-    s = np.asarray(state)
-    if s.size == 0 and s.ndim == 1:
-        return s.astype(np.int8)
-    if s.dtype.kind not in "iu":
-        raise ValueError(
-            f"{func}: state has dtype {s.dtype}; expected integer immersion states "
-            "(1 immersed, 0 emersed, 2 unknown)"
-        )
-    v.as_1d(s, func=func, name="state")
-    if s.size and min(_STATES) <= s.min() and s.max() <= max(_STATES):
-        return s.astype(np.int8, copy=False)  # the states are 0, 1, 2: no gaps in between
-    bad = ~np.isin(s, _STATES)
-    if bad.any():
-        i = int(np.argmax(bad))
-        raise ValueError(
-            f"{func}: state[{i}] = {s[i]}; allowed immersion states are "
-            "1 immersed, 0 emersed, 2 unknown"
-        )
-    return s.astype(np.int8, copy=False)
-
-
-def times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray]:
-    t = as_ns(times, func=func)
-    s = _state(state, func=func)
-    v.same_shape(s, t, func=func, names=("state", "times"))
-    check_non_decreasing(t, func=func)
-    return t, s
 
 
 def immersion_consistency_flags(
@@ -115,7 +79,7 @@ def immersion_consistency_flags(
     Definition: common practice, no source. Cost O(n).
     """
     func = "immersion_consistency_flags"
-    t, s = times_and_state(times, state, func=func)
+    t, s = v.times_and_state(times, state, func=func)
     lv = v.as_1d(v.as_values(level, func=func, name="level"), func=func, name="level")
     v.same_shape(lv, t, func=func, names=("level", "times"))
     z = v.real_number(elevation_m, func=func, name="elevation_m")
@@ -199,7 +163,7 @@ def companion_gating_flags(times, state, *, settle_s: float) -> np.ndarray:
     Definition: common practice, no source. Cost O(n).
     """
     func = "companion_gating_flags"
-    t, s = times_and_state(times, state, func=func)
+    t, s = v.times_and_state(times, state, func=func)
     settle = v.positive(settle_s, func=func, name="settle_s", allow_zero=True)
     settle_ns = 0 if settle == 0 else v.duration_ns(settle, func=func, name="settle_s")
 

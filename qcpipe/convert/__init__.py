@@ -1,7 +1,7 @@
 """Sensor conversions from raw readings to physical quantities."""
 
 from .sensors import (  # noqa: F401
-    IMMERSION_EMERSED, IMMERSION_IMMERSED, IMMERSION_UNKNOWN, gravity_from_latitude,
+    gravity_from_latitude,
     immersion_from_wetness, seawater_density_from_temperature, water_level_from_pressure,
     wetness_from_reading,
 )

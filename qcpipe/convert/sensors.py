@@ -7,9 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
-IMMERSION_EMERSED = np.int8(0)
-IMMERSION_IMMERSED = np.int8(1)
-IMMERSION_UNKNOWN = np.int8(2)
+from ..arrays import EMERSED, IMMERSED, UNKNOWN
 
 
 def wetness_from_reading(reading, *, air: float, water: float) -> np.ndarray:
@@ -31,8 +29,8 @@ def wetness_from_reading(reading, *, air: float, water: float) -> np.ndarray:
 def immersion_from_wetness(wetness, *, threshold: float = 0.5) -> np.ndarray:
     """Immersion state: 1 immersed where ``wetness >= threshold``, 0 emersed, 2 unknown (NaN)."""
     w = np.asarray(wetness, dtype=np.float64)
-    out = np.where(w >= threshold, IMMERSION_IMMERSED, IMMERSION_EMERSED).astype(np.int8)
-    out[np.isnan(w)] = IMMERSION_UNKNOWN
+    out = np.where(w >= threshold, IMMERSED, EMERSED).astype(np.int8)
+    out[np.isnan(w)] = UNKNOWN
     return out
 
 

@@ -1,7 +1,8 @@
 """Tides: constituents, astronomical arguments, prediction and harmonic analysis.
 
 Only this package's harmonic modules are imported here; other modules of the
-package (events, datums, immersion, ...) are imported by their own path.
+package (events, datums, classify, exposure, crossings, clock, elevation) are imported by
+their own path.
 """
 
 from .analysis import TideFit, fit_constituents, select_constituents

@@ -44,7 +44,7 @@ def test_markdown_cells_cannot_break_the_table():
 
 FLOW = r"""
 import json, sys
-from qcpipe.orchestration import configure_prefect
+from qcpipe.flows.prefect_settings import configure_prefect
 configure_prefect(sys.argv[1])
 from prefect import flow
 from prefect.artifacts import Artifact

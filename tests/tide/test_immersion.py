@@ -1,4 +1,4 @@
-"""Tests for qcpipe.tide.immersion.
+"""Tests for qcpipe.tide.classify and qcpipe.tide.exposure.
 
 Outside references: skimage.filters.threshold_otsu (scikit-image) for the Otsu
 threshold; analytical values of Otsu's separability for a normal (2/pi) and a
@@ -13,20 +13,28 @@ import pytest
 import scipy.constants
 from skimage.filters import threshold_otsu
 
-from qcpipe.tide.immersion import (
-    AIR_READING_NF,
+from qcpipe.tide.classify import (
     BIMODALITY_CUTOFF,
-    WATER_READING_NF,
-    WATER_RELATIVE_PERMITTIVITY,
     bimodality_score,
-    capacitance_from_geometry,
     classify_immersion,
-    daily_exposure,
-    exposure_periods,
-    immersion_at,
     otsu_threshold,
-    transitions,
 )
+from qcpipe.tide.exposure import daily_exposure, exposure_periods, immersion_at, transitions
+
+#: Typical dry and wet readings of a small capacitive probe, nF (common practice, no source):
+#: the scale of the synthetic records below.
+AIR_READING_NF = 0.06
+WATER_READING_NF = 0.17
+#: Relative permittivity of water at about 20 degC, CRC Handbook of Chemistry and Physics (from memory).
+WATER_RELATIVE_PERMITTIVITY = 80.0
+
+
+def capacitance_from_geometry(area_m2, separation_m, *, relative_permittivity=1.0):
+    """Ideal parallel-plate capacitance C = eps0 eps_r A / d, F (eps0: CODATA 2018 via scipy.constants)."""
+    area, d = np.asarray(area_m2, dtype=float), np.asarray(separation_m, dtype=float)
+    if np.any(area <= 0) or np.any(d <= 0):
+        raise ValueError("capacitance_from_geometry: area_m2 and separation_m; both must be > 0")
+    return scipy.constants.epsilon_0 * relative_permittivity * area / d
 
 S = 10**9
 T0 = np.datetime64("2024-03-01T18:00:00", "ns").view(np.int64)
@@ -268,7 +276,7 @@ def test_immersion_at_by_hand():
 
 
 def test_state_values_are_checked():
-    with pytest.raises(ValueError, match=r"state\[1\] = 5; expected 0 emersed, 1 immersed or 2 unknown"):
+    with pytest.raises(ValueError, match=r"transitions: state\[1\] = 5; allowed immersion states are 1 immersed, 0 emersed, 2 unknown"):
         transitions(minutes(3), np.array([0, 5, 1]))
 
 

@@ -1,4 +1,4 @@
-"""Tests for qcpipe.tide.timing.
+"""Tests for qcpipe.tide.crossings, qcpipe.tide.clock and qcpipe.tide.elevation.
 
 Synthetic tides are built here with numpy from the M2 (and S2) constituent
 speeds; crossing times of the true (continuous) tide come from closed forms or
@@ -14,20 +14,17 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from qcpipe.tide.timing import (
+from qcpipe.tide.clock import clock_error_estimate, clock_verdict
+from qcpipe.tide.crossings import (
     Crossings,
-    EffectiveElevation,
     LagEstimate,
     TransitionOffsets,
-    clock_error_estimate,
-    clock_verdict,
-    effective_elevation,
-    elevation_check,
     observed_transitions,
     predicted_crossings,
     transition_offsets,
     wet_dry_lag,
 )
+from qcpipe.tide.elevation import EffectiveElevation, effective_elevation, elevation_check
 
 S = 10**9  # nanoseconds per second
 M2 = math.radians(28.9841042) / 3600  # rad/s, Schureman (1958) Table 2, from memory

@@ -1,4 +1,4 @@
-"""Chunked QC equals in-memory QC at every sample, whatever the chunk size."""
+"""The core checks in chunks equal the in-memory core checks at every sample, whatever the chunk size."""
 
 from __future__ import annotations
 
@@ -8,7 +8,8 @@ import xarray as xr
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from qcpipe.chunked import qc_chunks, qc_netcdf_chunked, required_overlap_s
+from qcpipe.checks import aggregate_flags
+from qcpipe.long_series import core_flags_in_chunks, core_qc_netcdf, required_overlap_s
 from qcpipe.config.rules import VariableRules
 from qcpipe.qc import flags_for_variable
 
@@ -42,7 +43,7 @@ def chunked(t, v, sizes):
     blocks = [(t[a:b], v[a:b]) for a, b in zip(edges[:-1], edges[1:]) if a < t.size]
     if edges[-1] < t.size:
         blocks.append((t[edges[-1]:], v[edges[-1]:]))
-    parts = list(qc_chunks(blocks, RULES))
+    parts = list(core_flags_in_chunks(blocks, RULES))
     tt = np.concatenate([p[0] for p in parts])
     flags = {k: np.concatenate([p[2][k] for p in parts]) for k in parts[0][2]}
     return tt, flags
@@ -57,6 +58,8 @@ def test_chunked_equals_in_memory(seed, sizes):
     np.testing.assert_array_equal(tt, t)
     for check, arr in whole.items():
         np.testing.assert_array_equal(flags[check], arr, err_msg=check)
+    assert set(flags) == set(whole) | {"aggregate"}
+    np.testing.assert_array_equal(flags["aggregate"], aggregate_flags(v, list(whole.values())))
 
 
 def test_overlap_is_the_longest_window():
@@ -66,7 +69,7 @@ def test_overlap_is_the_longest_window():
 def test_blocks_out_of_order_rejected():
     t, v = series(1, 100)
     with pytest.raises(ValueError, match="time order"):
-        list(qc_chunks([(t[50:], v[50:]), (t[:50], v[:50])], RULES))
+        list(core_flags_in_chunks([(t[50:], v[50:]), (t[:50], v[:50])], RULES))
 
 
 def test_netcdf_to_netcdf_in_slices(tmp_path):
@@ -74,10 +77,11 @@ def test_netcdf_to_netcdf_in_slices(tmp_path):
     src = tmp_path / "in.nc"
     xr.Dataset({"temperature": ("time", v)}, coords={"time": t}).to_netcdf(
         src, encoding={"time": {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}})
-    counts = qc_netcdf_chunked(src, "temperature", RULES, tmp_path / "out.nc", block=333)
+    counts = core_qc_netcdf(src, "temperature", RULES, tmp_path / "out.nc", block=333)
     with xr.open_dataset(tmp_path / "out.nc") as out:
         whole = flags_for_variable(v, t, RULES)
         np.testing.assert_array_equal(out["time"].values, t)
         for check, arr in whole.items():
             np.testing.assert_array_equal(out[f"temperature_qc_{check}"].values, arr, err_msg=check)
             assert counts[check] == {int(a): int(c) for a, c in zip(*np.unique(arr, return_counts=True))}
+        np.testing.assert_array_equal(out["temperature_qc_aggregate"].values, aggregate_flags(v, list(whole.values())))

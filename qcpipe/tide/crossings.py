@@ -1,5 +1,7 @@
-"""Timing of immersion and emersion against a reference tide: probe clock errors
-and the effective elevation of the sensing point.
+"""Crossings of a level by the tide, observed wet/dry transitions, their offsets and lag.
+
+The clock verdict built on them is in :mod:`qcpipe.tide.clock`, the effective
+elevation of the sensing point in :mod:`qcpipe.tide.elevation`.
 
 Everything here is analysis of arrays held in memory; nothing reads or writes
 files. Times are numpy datetime64 (any unit) or int64 nanoseconds since
@@ -31,7 +33,6 @@ import numpy as np
 
 from .. import arrays as v
 from ..arrays import as_ns, check_non_decreasing
-from qcpipe.checks.tide import times_and_state
 
 _NS = 1e9
 #: Scale factor making the median absolute deviation a consistent estimate of
@@ -42,7 +43,7 @@ MAD_SCALE = 1.4826
 class Crossings(NamedTuple):
     """Times at which the sensing point floods (goes wet) and drains (goes dry).
 
-    Same fields as :class:`qcpipe.tide.immersion.Transitions`, so either can be
+    Same fields as :class:`qcpipe.tide.exposure.Transitions`, so either can be
     passed on.
     """
 
@@ -74,38 +75,7 @@ class LagEstimate:
     at_limit: bool  #: True if the peak reaches +-max_lag_s (lag_s not refined)
 
 
-@dataclass(frozen=True)
-class ClockVerdict:
-    """Verdict on a constant clock error of an immersion record (:func:`clock_verdict`)."""
-
-    offset_s: float  #: common transition offset, observed - predicted, s (+: logger ahead)
-    spread_s: float  #: 1.4826 * MAD of the transition offsets about their kind medians, s
-    n_transitions: int  #: transitions matched to the prediction
-    lag_xcorr_s: float  #: cross-correlation lag, s, same sign convention
-    suspected: bool
-    whole_hours: int | None  #: nearest non-zero whole hours when suspected and close, else None
-    message: str
-
-
-@dataclass(frozen=True)
-class EffectiveElevation:
-    """Reference water level at the observed transitions (m above the datum)."""
-
-    levels_m: np.ndarray  #: level at each flood then each drain; NaN outside the reference
-    median_m: float
-    spread_m: float  #: 1.4826 * MAD, m
-    n: int  #: number of transitions with a level
-
-
-class ElevationCheck(NamedTuple):
-    """Result of :func:`elevation_check`."""
-
-    difference_m: float
-    suspect: bool
-    message: str
-
-
-def _ref_series(times, level, *, func: str, names=("times", "level")):
+def reference_series(times, level, *, func: str, names=("times", "level")):
     t = as_ns(times, func=func, name=names[0])
     x = v.as_1d(v.as_values(level, func=func, name=names[1]), func=func, name=names[1])
     v.same_shape(x, t, func=func, names=(names[1], names[0]))
@@ -113,7 +83,7 @@ def _ref_series(times, level, *, func: str, names=("times", "level")):
     return t, x
 
 
-def _sorted_times(times, *, func: str, name: str) -> np.ndarray:
+def sorted_times(times, *, func: str, name: str) -> np.ndarray:
     arr = np.asarray(times)
     if arr.ndim == 1 and arr.size == 0:
         return np.zeros(0, dtype=np.int64)
@@ -122,7 +92,7 @@ def _sorted_times(times, *, func: str, name: str) -> np.ndarray:
     return t
 
 
-def _robust(x: np.ndarray) -> tuple[float, float]:
+def median_and_spread(x: np.ndarray) -> tuple[float, float]:
     """(median, 1.4826 * MAD) of the finite values; NaN, NaN if there are none."""
     x = x[np.isfinite(x)]
     if x.size == 0:
@@ -168,7 +138,7 @@ def predicted_crossings(times, level, *, elevation_m: float) -> Crossings:
     are interpolated across NaN gaps too. Cost O(n).
     """
     func = "predicted_crossings"
-    t, x = _ref_series(times, level, func=func)
+    t, x = reference_series(times, level, func=func)
     z = v.real_number(elevation_m, func=func, name="elevation_m")
     ok = ~np.isnan(x)
     t, x = t[ok], x[ok]
@@ -203,12 +173,12 @@ def observed_transitions(times, state) -> Crossings:
     samples j and k is placed at the midpoint ``(t_j + t_k) / 2``: the change
     happened somewhere in between, and for a change equally likely anywhere
     in the interval the midpoint is unbiased, with an error of at most half
-    the interval. (:func:`qcpipe.tide.immersion.transitions` times a change
+    the interval. (:func:`qcpipe.tide.exposure.transitions` times a change
     at the first sample in the new state instead, which is late by half a
     sample interval on average: 2.5 min at 5-min sampling, a bias in every
     clock offset.) Definition: common practice, no source. Cost O(n).
     """
-    t, s = times_and_state(times, state, func="observed_transitions")
+    t, s = v.times_and_state(times, state, func="observed_transitions")
     known = s != 2
     t, s = t[known], s[known]
     step = np.flatnonzero(s[1:] != s[:-1])
@@ -282,19 +252,19 @@ def transition_offsets(
     O((n + m) log m) for n observed and m predicted transitions.
     """
     func = "transition_offsets"
-    of = _sorted_times(observed_flood, func=func, name="observed_flood")
-    od = _sorted_times(observed_drain, func=func, name="observed_drain")
-    pf = _sorted_times(predicted_flood, func=func, name="predicted_flood")
-    pd = _sorted_times(predicted_drain, func=func, name="predicted_drain")
+    of = sorted_times(observed_flood, func=func, name="observed_flood")
+    od = sorted_times(observed_drain, func=func, name="observed_drain")
+    pf = sorted_times(predicted_flood, func=func, name="predicted_flood")
+    pd = sorted_times(predicted_drain, func=func, name="predicted_drain")
     max_ns = v.duration_ns(max_offset_s, func=func, name="max_offset_s")
 
     flood = _nearest_offsets(of, pf, max_ns)
     drain = _nearest_offsets(od, pd, max_ns)
     both = np.concatenate((flood, drain))
     matched = np.isfinite(both)
-    fm, _ = _robust(flood)
-    dm, _ = _robust(drain)
-    median, _ = _robust(both)
+    fm, _ = median_and_spread(flood)
+    dm, _ = median_and_spread(drain)
+    median, _ = median_and_spread(both)
     common = float(np.nanmean([fm, dm])) if np.isfinite([fm, dm]).any() else math.nan
     resid = np.concatenate((flood - fm, drain - dm))
     resid = resid[np.isfinite(resid)]
@@ -385,8 +355,8 @@ def wet_dry_lag(
     Definition: common practice, no source.
     """
     func = "wet_dry_lag"
-    t, s = times_and_state(times, state, func=func)
-    rt, rx = _ref_series(ref_times, ref_level, func=func, names=("ref_times", "ref_level"))
+    t, s = v.times_and_state(times, state, func=func)
+    rt, rx = reference_series(ref_times, ref_level, func=func, names=("ref_times", "ref_level"))
     z = v.real_number(elevation_m, func=func, name="elevation_m")
     max_lag = v.positive(max_lag_s, func=func, name="max_lag_s")
     step = v.positive(step_s, func=func, name="step_s")
@@ -430,226 +400,3 @@ def _peak_centre(lags: np.ndarray, corr: np.ndarray, *, delta: float) -> LagEsti
     lo = lags[a] + step * (level - c[a]) / (c[a + 1] - c[a])
     hi = lags[b - 1] + step * (c[b - 1] - level) / (c[b - 1] - c[b])
     return LagEstimate(lag_s=float(0.5 * (lo + hi)), peak=float(c[j]), at_limit=False)
-
-
-def _minutes(seconds: float) -> str:
-    return "nan min" if not np.isfinite(seconds) else f"{int(round(seconds / 60)):+d} min"
-
-
-def clock_verdict(
-    offsets: TransitionOffsets,
-    lag: LagEstimate,
-    *,
-    threshold_s: float = 1200,
-    agree_s: float = 600,
-    whole_hour_tol_s: float = 300,
-    min_transitions: int = 4,
-) -> ClockVerdict:
-    """Decide whether an immersion record has a constant clock error.
-
-    Parameters
-    ----------
-    offsets : TransitionOffsets
-        From :func:`transition_offsets`.
-    lag : LagEstimate
-        From :func:`wet_dry_lag`.
-    threshold_s : float
-        Smallest ``|offset|`` reported as a clock error, s (default 20 min).
-    agree_s : float
-        Largest difference between the transition offset and the
-        cross-correlation lag for the two to agree, s (default 10 min).
-    whole_hour_tol_s : float
-        An offset within this many seconds of a non-zero whole number of hours
-        is named as a likely UTC-offset or daylight-saving mistake (default
-        5 min).
-    min_transitions : int
-        Fewest matched transitions for any verdict (default 4).
-
-    Returns
-    -------
-    ClockVerdict
-        ``offset_s = offsets.common_s`` and ``spread_s = offsets.spread_s``;
-        ``suspected`` when there are at least `min_transitions` matched
-        transitions, ``|offset_s| > threshold_s``, ``spread_s < |offset_s| / 2``,
-        the lag is not at the end of its range and
-        ``|offset_s - lag_xcorr_s| <= agree_s``; ``whole_hours`` the nearest
-        whole number of hours when suspected and within `whole_hour_tol_s` of
-        it, else None; a one-line message.
-
-    Notes
-    -----
-    Positive offset: transitions late, logger timestamps ahead of the
-    prediction's time base (UTC); subtract the offset to correct. The
-    thresholds are common practice, no source.
-    """
-    func = "clock_verdict"
-    threshold = v.positive(threshold_s, func=func, name="threshold_s")
-    agree = v.positive(agree_s, func=func, name="agree_s")
-    hour_tol = v.positive(whole_hour_tol_s, func=func, name="whole_hour_tol_s")
-    min_n = v.count(min_transitions, func=func, name="min_transitions", minimum=1)
-
-    off, spread, n, lag_s = offsets.common_s, offsets.spread_s, offsets.n_matched, lag.lag_s
-    detail = (f"median transition offset {_minutes(off)} (spread {spread / 60:.0f} min, "
-              f"{n} transitions), cross-correlation lag {_minutes(lag_s)}")
-    if n < min_n or not np.isfinite(off):
-        msg = (f"clock not assessed: {n} transitions matched to the prediction, at least "
-               f"{min_n} needed")
-        return ClockVerdict(off, spread, n, lag_s, False, None, msg)
-    suspected = bool(
-        abs(off) > threshold
-        and spread < abs(off) / 2
-        and not lag.at_limit
-        and np.isfinite(lag_s)
-        and abs(off - lag_s) <= agree
-    )
-    if not suspected:
-        return ClockVerdict(off, spread, n, lag_s, False, None,
-                            f"no clock error suspected: {detail}")
-    hours = int(round(off / 3600))
-    whole = hours if hours != 0 and abs(off - 3600 * hours) <= hour_tol else None
-    side = "late" if off > 0 else "early"
-    fix = (f"logger times {'ahead' if off > 0 else 'behind'} by {abs(off) / 60:.0f} min: "
-           f"{'subtract' if off > 0 else 'add'} it to correct")
-    if whole is not None:
-        msg = (f"probe clock about {60 * whole:+d} min off: likely a UTC-offset or "
-               f"daylight-saving setting; transitions {side}, {detail}; {fix}")
-    else:
-        msg = (f"probe clock about {off / 60:+.0f} min off: transitions {side}, {detail}; "
-               f"check the logger clock; {fix}")
-    return ClockVerdict(off, spread, n, lag_s, True, whole, msg)
-
-
-def clock_error_estimate(
-    times,
-    state,
-    ref_times,
-    ref_level,
-    *,
-    elevation_m: float,
-    max_lag_s: float = 3 * 3600,
-    step_s: float = 60,
-    threshold_s: float = 1200,
-    agree_s: float = 600,
-    whole_hour_tol_s: float = 300,
-    min_transitions: int = 4,
-) -> ClockVerdict:
-    """Estimate a constant clock error of an immersion record against a reference tide.
-
-    Parameters
-    ----------
-    times, state
-        The immersion series (logger clock): times and states 1/0/2.
-    ref_times, ref_level
-        Reference water level series (UTC), m above the datum of `elevation_m`.
-    elevation_m : float
-        Surveyed elevation of the sensing point, m above the same datum.
-    max_lag_s, step_s
-        Lag range and step of the cross-correlation, s; also the largest
-        transition offset matched is `max_lag_s`.
-    threshold_s, agree_s, whole_hour_tol_s, min_transitions
-        Decision parameters, see :func:`clock_verdict`.
-
-    Returns
-    -------
-    ClockVerdict
-
-    Notes
-    -----
-    Two estimates are combined: the transition offsets
-    (:func:`observed_transitions` matched to :func:`predicted_crossings` by
-    :func:`transition_offsets`) and the cross-correlation lag
-    (:func:`wet_dry_lag`); see :func:`clock_verdict` for the decision. Both
-    estimates are positive when the logger timestamps are ahead of the
-    prediction's time base. Cost O(n * K) for K lags.
-    """
-    pred = predicted_crossings(ref_times, ref_level, elevation_m=elevation_m)
-    obs = observed_transitions(times, state)
-    offs = transition_offsets(obs.flooding, obs.draining, pred.flooding, pred.draining,
-                              max_offset_s=max_lag_s)
-    lag = wet_dry_lag(times, state, ref_times, ref_level, elevation_m=elevation_m,
-                      max_lag_s=max_lag_s, step_s=step_s)
-    return clock_verdict(offs, lag, threshold_s=threshold_s, agree_s=agree_s,
-                         whole_hour_tol_s=whole_hour_tol_s, min_transitions=min_transitions)
-
-
-def effective_elevation(observed_flood, observed_drain, ref_times, ref_level) -> EffectiveElevation:
-    """Reference water level at the observed transitions: the elevation at which
-    the sensing point actually goes wet and dry.
-
-    Parameters
-    ----------
-    observed_flood, observed_drain : array_like of datetime64 or int64 ns
-        Observed flood and drain times (e.g. from :func:`observed_transitions`),
-        on the time base of the reference (correct a clock error first).
-    ref_times : array_like of datetime64 or int64 ns, shape (m,)
-        Times of the reference level series, non-decreasing.
-    ref_level : array_like of float, shape (m,)
-        Reference water level, m above the datum.
-
-    Returns
-    -------
-    EffectiveElevation
-        ``levels_m``: the level linearly interpolated at each flood then each
-        drain (NaN outside the reference or next to a NaN level), and their
-        median, 1.4826 * MAD spread and count ``n``, in m.
-
-    Notes
-    -----
-    A time error ``dt`` at a transition where the level changes at rate
-    ``dL/dt`` moves the estimate by ``dL/dt * dt``; on a clean record the
-    median cancels most of the timing noise. Wave run-up and splash make the
-    effective elevation somewhat lower than the surveyed one on exposed
-    shores. Definition: common practice, no source. Cost O((n + m) log m).
-    """
-    func = "effective_elevation"
-    of = _sorted_times(observed_flood, func=func, name="observed_flood")
-    od = _sorted_times(observed_drain, func=func, name="observed_drain")
-    rt, rx = _ref_series(ref_times, ref_level, func=func, names=("ref_times", "ref_level"))
-    at = np.concatenate((of, od)).astype(np.float64)
-    if rt.size == 0:
-        lv = np.full(at.shape, np.nan)
-    else:
-        lv = np.interp(at, rt.astype(np.float64), rx, left=np.nan, right=np.nan)
-    median, spread = _robust(lv)
-    return EffectiveElevation(levels_m=lv, median_m=median, spread_m=spread,
-                              n=int(np.isfinite(lv).sum()))
-
-
-def elevation_check(effective: EffectiveElevation, surveyed_m: float, *,
-                    tolerance_m: float) -> ElevationCheck:
-    """Compare the effective elevation of a sensing point with its surveyed one.
-
-    Parameters
-    ----------
-    effective : EffectiveElevation
-        From :func:`effective_elevation`.
-    surveyed_m : float
-        Surveyed elevation, m above the datum of the reference.
-    tolerance_m : float
-        Largest ``|difference|`` accepted, m (> 0).
-
-    Returns
-    -------
-    ElevationCheck
-        ``difference_m = effective.median_m - surveyed_m`` (positive: the point
-        behaves as if higher than surveyed), ``suspect = |difference_m| >
-        tolerance_m``, and a one-line message. With no transitions the
-        difference is NaN and nothing is suspected.
-
-    Notes
-    -----
-    Definition: common practice, no source.
-    """
-    func = "elevation_check"
-    z = v.real_number(surveyed_m, func=func, name="surveyed_m")
-    tol = v.positive(tolerance_m, func=func, name="tolerance_m")
-    if effective.n == 0 or not np.isfinite(effective.median_m):
-        return ElevationCheck(math.nan, False,
-                              "elevation not assessed: no transitions inside the reference series")
-    diff = effective.median_m - z
-    detail = (f"effective elevation {effective.median_m:.3f} m (spread {effective.spread_m:.3f} m, "
-              f"{effective.n} transitions) vs surveyed {z:.3f} m: difference {diff:+.3f} m")
-    if abs(diff) > tol:
-        return ElevationCheck(diff, True, f"elevation suspect: {detail}, beyond "
-                                          f"{tol:.3f} m; check the survey and the datum")
-    return ElevationCheck(diff, False, f"elevation consistent: {detail}, within {tol:.3f} m")

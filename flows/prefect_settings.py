@@ -13,6 +13,8 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+from qcpipe.files import write_text_atomic
+
 DEFAULTS = {
     "PREFECT_SERVER_ANALYTICS_ENABLED": "false",
     "DO_NOT_TRACK": "1",
@@ -45,9 +47,7 @@ def _write_logging_config(home: Path) -> Path:
     out = home / "logging.yml"
     text = yaml.safe_dump(config, sort_keys=False)
     if not out.exists() or out.read_text() != text:
-        tmp = out.with_name(out.name + ".tmp")
-        tmp.write_text(text)
-        tmp.replace(out)
+        write_text_atomic(out, text)
     return out
 
 
