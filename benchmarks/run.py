@@ -41,7 +41,7 @@ NS = 1_000_000_000
 CHECKS = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", "gap",
           "immersion_consistency")
 
-# Targets (issue 6 section 1).
+# Targets (benchmarks/README.md).
 TARGET_VS_COPY = 20.0           # check time / values.copy() time, at most
 TARGET_VS_PANDAS = 5.0          # pandas reference time / check time, at least
 TARGET_WINDOW = 1.2             # suite time with 10x windows / with base windows, at most

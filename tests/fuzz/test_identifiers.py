@@ -1,6 +1,6 @@
 """Identifiers that end up in archive paths: unsafe ones are rejected; ArchivePaths stays inside the root.
 
-The spec restated here (not imported): a safe identifier is 1-64 characters of
+The rule restated here (not imported from qcpipe.config): a safe identifier is 1-64 characters of
 ASCII letters, digits, '-', '_' and '.', starts with a letter or digit, and holds no "..".
 """
 

@@ -48,7 +48,7 @@ def test_round_trip_of_own_prediction_noise_free():
     fit = fit_constituents(t, h, constituents=list(MANY))
     assert not fit.dropped
     assert fit.mean_level_m == pytest.approx(1.5, abs=1e-4)
-    # < 0.1 mm (the brief); phases of a 1 cm constituent to 0.01 deg
+    # < 0.1 mm (the project's tolerance for noise-free synthetic records); phases of a 1 cm constituent to 0.01 deg
     _assert_recovers(fit, MANY, amp_atol=1e-4, phase_atol=0.01)
     assert fit.residual_std_m < 1e-6
 
@@ -82,7 +82,7 @@ def test_fit_matches_utide_on_noisy_record():
     ref = utide.solve(t, h, lat=48.0, method="ols", conf_int="linear", nodal=True, trend=False,
                       constit=names, verbose=False)
     for name, amp, se in zip(ref.name, ref.A, ref.A_ci):
-        # 2 mm (the brief): the same least squares, nodal corrections differ < 1 %
+        # 2 mm (the project's tolerance against utide): the same least squares, nodal corrections differ < 1 %
         assert ours.amplitudes_m[name] == pytest.approx(amp, abs=0.002), name
     assert ours.mean_level_m == pytest.approx(ref.mean, abs=0.002)
 

@@ -142,7 +142,7 @@ def test_prediction_recovered_by_utide():
     assert fit.mean == pytest.approx(2.0, abs=1e-3)
     for name, (amp, phase) in MAJOR8.items():
         a, g = got[name]
-        # 1 mm and 0.5 deg (the brief's tolerances); Q1: utide gives Q1 its own
+        # 1 mm and 0.5 deg (the project's tolerances against utide); Q1: utide gives Q1 its own
         # satellites where Schureman uses the O1 factor, up to 4 % apart in f
         amp_tol = 0.04 * amp if name == "Q1" else 0.001
         assert a == pytest.approx(amp, abs=amp_tol), name

@@ -222,7 +222,7 @@ def offsets(common_s, spread_s, n=100):
 )
 def test_verdict_rules(common_s, spread_s, lag_s, suspected, whole_hours):
     # Defaults: threshold 20 min, spread < |offset| / 2, agreement 10 min,
-    # whole hours within 5 min (from the brief; common practice, no source).
+    # whole hours within 5 min (the project's chosen defaults; common practice, no source).
     got = clock_verdict(offsets(common_s, spread_s), LagEstimate(lag_s, 0.9, False))
     assert (got.suspected, got.whole_hours) == (suspected, whole_hours)
     assert got.offset_s == common_s and got.lag_xcorr_s == lag_s
