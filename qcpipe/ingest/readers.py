@@ -138,9 +138,10 @@ def _header_length(lines: list[str], layout: Layout, name: str, layout_name: str
     return k + 1
 
 
-def _csv_options(layout: Layout, n_columns: int) -> dict:
+def _csv_options(layout: Layout, n_columns: int | None) -> dict:
     sep = r"\s+" if layout.delimiter == WHITESPACE else layout.delimiter
-    return dict(sep=sep, header=None, names=list(range(n_columns)), dtype=str, keep_default_na=False,
+    names = None if n_columns is None else list(range(n_columns))
+    return dict(sep=sep, header=None, names=names, dtype=str, keep_default_na=False,
                 na_filter=False, engine="c", index_col=False, skip_blank_lines=False,
                 quoting=csv.QUOTE_MINIMAL if layout.quote else csv.QUOTE_NONE, quotechar=layout.quote or '"',
                 doublequote=True, skipinitialspace=layout.delimiter != WHITESPACE, on_bad_lines="warn")
@@ -179,9 +180,13 @@ def _parse(lines: list[str], layout: Layout, n_fields: int, name: str, line_numb
                          "set the layout's quote to \"\"")
     for i, n in long_rows.items():
         counts[i] = n
-    ends = np.column_stack([frame[j].to_numpy(dtype=object) == _END for j in range(n_fields + 1)])
-    found = ends.any(axis=1)
-    counts[kept] = np.where(found, ends.argmax(axis=1), -1)
+    found = np.where(frame[n_fields].to_numpy(dtype=object) == _END, n_fields, -1)
+    for j in range(n_fields):                    # only the rare rows whose marker came early
+        odd = np.flatnonzero(found < 0)
+        if not odd.size:
+            break
+        found[odd[frame[j].to_numpy(dtype=object)[odd] == _END]] = j
+    counts[kept] = found
     frame.index = kept
     return frame, counts
 
@@ -191,7 +196,7 @@ def _names_row(line: str, layout: Layout, name: str) -> list[str]:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", pd.errors.ParserWarning)
         try:
-            row = pd.read_csv(io.StringIO(text), **_csv_options(layout, 4096)).iloc[0].tolist()
+            row = pd.read_csv(io.StringIO(text), **_csv_options(layout, None)).iloc[0].tolist()
         except (ValueError, pd.errors.ParserError, IndexError) as err:
             raise ParseError(f"{name}: cannot split the column-name row ({shown_text(err)}); check the file or "
                              "the layout's quote and delimiter") from None
@@ -236,7 +241,7 @@ def _epoch(stamp: pd.Series, unit: str):
     return micro * 1000, ok, inside | ~ok
 
 
-def _times(stamp: pd.Series, layout: Layout, hv: dict, name: str, layout_name: str, line_numbers: np.ndarray,
+def _times(stamp: pd.Series, layout: Layout, hv: dict, name: str, line_numbers: np.ndarray,
            counts: dict):
     """(int64 ns, readable, in-range, basis, zone label, fixed offset) of the joined stamps."""
     spec = layout.time
@@ -419,7 +424,7 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> Ra
     fmt = layout.time.format
     # rows are checked in stages (fields, time, years, values); each stage drops what it refuses
     ns, readable, inside, basis, zone_label, fixed = _times(
-        stamp, layout, hv, name, layout_name, line_numbers, counts)
+        stamp, layout, hv, name, line_numbers, counts)
     keep = _refuse_or_skip(
         layout, name, ~readable,
         lambda i: (f"line {line_numbers[i]}: time {stamp.iloc[i]!r} does not match format {fmt!r}; correct the file "
