@@ -47,7 +47,8 @@ def case(draw):
                 comments=draw(st.lists(st.integers(0, n), max_size=3)),
                 offsets=draw(st.lists(st.sampled_from(OFFSETS), min_size=n, max_size=n)),
                 zone=draw(st.sampled_from(OFFSETS)), newline=draw(st.sampled_from(["\n", "\r\n", "\r"])),
-                bom=draw(st.booleans()), epoch_fraction=draw(st.booleans()))
+                bom=draw(st.booleans()), epoch_fraction=draw(st.booleans()),
+                restart=draw(st.none() | st.integers(1, n)))
 
 
 def number_text(v: float | None, c: dict) -> str:
@@ -108,6 +109,8 @@ def write_case(folder: Path, c: dict):
     body = [sep.join(r) for r in rows]
     for k in sorted(c["comments"], reverse=True):
         body.insert(k, "# note from the logger")
+    if c["column_names"] and c["restart"] is not None:
+        body.insert(c["restart"], sep.join(names))          # the logger restarted and wrote its names again
     text = c["newline"].join(lines + body) + c["newline"]
     data = ("\ufeff" if c["bom"] else "").encode() + text.encode("utf-8")
     path = folder / "AB12_case.txt"
@@ -136,5 +139,6 @@ def test_any_layout_reads_back_what_was_written(c):
         table = read_raw_file(path, layout, "random")
     np.testing.assert_array_equal(table.logger_time, times)
     np.testing.assert_array_equal(table.values["temperature"], values)
-    assert table.counts["skipped_lines"] == len(c["comments"])
+    restarts = int(c["column_names"] and c["restart"] is not None)
+    assert table.counts["skipped_lines"] == len(c["comments"]) + restarts
     assert table.time_basis == ("logger_clock" if c["style"] == "strftime" else "utc")
