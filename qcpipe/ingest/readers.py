@@ -173,7 +173,9 @@ def _parse(lines: list[str], layout: Layout, n_fields: int, name: str, line_numb
         for m in _PARSER_SKIP.finditer(str(w.message)):
             long_rows[int(m.group(1)) - 1] = int(m.group(2)) - 1
     counts = np.full(len(lines), -1, dtype=np.int64)
-    kept = np.array([i for i in range(len(lines)) if i not in long_rows], dtype=np.int64)
+    in_frame = np.ones(len(lines), dtype=bool)
+    in_frame[list(long_rows)] = False
+    kept = np.flatnonzero(in_frame)
     if len(frame) != kept.size:
         raise ParseError(f"{name}: {len(lines)} data lines but {len(frame) + len(long_rows)} records read (a "
                          f"quoted field spans lines or a quote {layout.quote!r} is not closed); correct the file or "
