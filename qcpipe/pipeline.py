@@ -140,6 +140,7 @@ class Store:
     counts: dict[str, int]             # cumulative ingest counts (trimmed, repeats, conflicts)
     clock_drift_s: float = 0.0
     ingest_key: str = ""               # lineage.ingest_key when the store was built
+    file_provenance: dict = field(default_factory=dict)   # raw file name -> how it was read (header values...)
 
 
 def load_store(ctx: Context, deployment_id: str) -> Store | None:
@@ -155,7 +156,8 @@ def load_store(ctx: Context, deployment_id: str) -> Store | None:
                  conflict={k: ds[f"conflict_{k}"].values.astype(bool) for k in units},
                  source=ds["source_index"].values.astype(np.int16), sources=ds.attrs["source_sha256"].split(),
                  names=ds.attrs["source_names"].split(), counts=json.loads(ds.attrs["counts_json"]),
-                 clock_drift_s=float(ds.attrs.get("clock_drift_s", 0.0)), ingest_key=ds.attrs.get("ingest_key", ""))
+                 clock_drift_s=float(ds.attrs.get("clock_drift_s", 0.0)), ingest_key=ds.attrs.get("ingest_key", ""),
+                 file_provenance=json.loads(ds.attrs.get("file_provenance_json", "{}")))
 
 
 def _write_store(ctx: Context, station_id: str, store: Store) -> None:
@@ -168,7 +170,8 @@ def _write_store(ctx: Context, station_id: str, store: Store) -> None:
                 "instrument_kind": store.kind, "source_sha256": " ".join(store.sources),
                 "source_names": " ".join(store.names), "units_json": json.dumps(store.units, sort_keys=True),
                 "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s,
-                "ingest_key": store.ingest_key}
+                "ingest_key": store.ingest_key,
+                "file_provenance_json": json.dumps(store.file_provenance, sort_keys=True)}
     enc = {"time": {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}}
     for k in ds.data_vars:
         enc[k] = {"zlib": True, "complevel": 4}
@@ -214,6 +217,7 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
     prior = {k: ([old.conflict[k]] if old else []) for k in units}
     srcs = [old.source] if old else []
     drift = old.clock_drift_s if old else 0.0
+    file_provenance = dict(old.file_provenance) if old else {}
     for f in sorted(files, key=lambda f: (f.time.min() if f.time.size else np.datetime64("NaT"), f.raw.name)):
         if f.units != units:
             raise FileRejected(f"{f.raw.name}: units {f.units} differ from earlier files {units} of deployment "
@@ -230,12 +234,13 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
         for key in _COUNT_KEYS:
             counts[key] = counts.get(key, 0) + int(f.counts.get(key, 0))
         drift = f.clock_correction_s
+        file_provenance[f.raw.name] = f.provenance
     merged = merge_records(np.concatenate(times), {k: np.concatenate(v) for k, v in vals.items()},
                            np.concatenate(srcs), conflict={k: np.concatenate(v) for k, v in prior.items()})
     counts["duplicates"] = counts.get("duplicates", 0) + merged.duplicates
     counts["conflicts"] = int(max((np.count_nonzero(m) for m in merged.conflict.values()), default=0))
     store = Store(dep.id, kind, merged.time, merged.values, units, merged.conflict, merged.source, sources, names,
-                  counts, drift, lineage.ingest_key(ctx, dep.id))
+                  counts, drift, lineage.ingest_key(ctx, dep.id), file_provenance)
     _write_store(ctx, dep.station, store)
     if merged.conflict_rows:
         _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names)
@@ -270,7 +275,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
     label = f"{station.id}/{dep.id}"
     transitions = None
-    notices: list[str] = []
+    notices: list[str] = [n for f in new_files for n in f.notes]
     tide_attrs: dict = {}
     qc_args: dict = {}
     if store.kind == "immersion_probe":
@@ -326,7 +331,8 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                                        clock_drift_at_check_s=round(float(store.clock_drift_s), 3),
                                        samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
                                        samples_removed_post_recovery_total=counts.get("post_recovery", 0),
-                                       download_conflicts=counts.get("conflicts", 0)))
+                                       download_conflicts=counts.get("conflicts", 0),
+                                       raw_file_reading=json.dumps(store.file_provenance, sort_keys=True)))
     inputs = lineage.qc_inputs(ctx, dep.id)
     key = lineage.qc_key(ctx, dep.id)
     provenance["extra_attrs"]["qc_inputs_sha256"] = key

@@ -134,6 +134,14 @@ def check_raw_unit(raw_unit: str, *, stored: str | None = None) -> str:
     return raw_unit
 
 
+def same_unit(a: str, b: str) -> bool:
+    """True when two unit texts mean the same unit (``"mS/cm"`` and ``"mS cm-1"``, ``"°C"`` and ``"degC"``)."""
+    try:
+        return a.strip() == b.strip() or _linear(a) == _linear(b)
+    except UnitError:
+        return False
+
+
 def to_stored_units(values, raw_unit: str):
     """Convert ``values`` from ``raw_unit`` to the stored unit (see ``stored_unit``).
 

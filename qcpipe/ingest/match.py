@@ -14,7 +14,7 @@ from ..config.layouts import LoadedLayouts
 from ..config.register import Deployment, LoadedRegister
 from ..errors import MatchError, ParseError, QcpipeError
 from .discover import RawFile
-from .readers import RawTable, read_raw_file, shown_name
+from .readers import LOGGER_CLOCK, RawTable, read_raw_file, shown_name
 from .timebase import drift_corrected, utc_from_logger_time, window_mask
 
 
@@ -35,10 +35,21 @@ class IngestedFile:
     units: dict[str, str]
     counts: dict[str, int] = field(default_factory=dict)
     clock_correction_s: float = 0.0       # drift removed at the clock check (logger minus reference)
+    provenance: dict = field(default_factory=dict)   # how the file was read: file_provenance()
+    notes: list[str] = field(default_factory=list)   # what a person should look at
 
 
-def _to_utc(logger_time: np.ndarray, dep: Deployment) -> tuple[np.ndarray, float]:
-    t = utc_from_logger_time(logger_time, offset_s=dep.offset_seconds)
+def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_CLOCK) -> tuple[np.ndarray, float]:
+    """UTC times of a file for deployment ``dep``, drift-corrected, and the clock error at the check (s).
+
+    Stamps on the logger's clock (``time_basis`` "logger_clock") are moved by the
+    register's ``clock_offset``; stamps the reader already put on UTC (the file
+    said its zone) are not moved again.  Either way the drift measured by the
+    deployment's clock check is removed: the check's ``logger_time`` is what the
+    logger's display showed, read with the register's ``clock_offset``.
+    """
+    offset = dep.offset_seconds if time_basis == LOGGER_CLOCK else 0.0
+    t = utc_from_logger_time(logger_time, offset_s=offset)
     if dep.clock_check is None:
         return t, 0.0
     check_logger = utc_from_logger_time(np.array([np.datetime64(dep.clock_check.logger_time, "ns")]),
@@ -53,6 +64,31 @@ def _to_utc(logger_time: np.ndarray, dep: Deployment) -> tuple[np.ndarray, float
 
 def _naive_utc(t) -> np.datetime64:
     return np.datetime64(t.replace(tzinfo=None) - t.utcoffset(), "ns")
+
+
+def offset_note(table: RawTable, dep: Deployment) -> str | None:
+    """A note when the register's non-zero clock_offset is not applied because the file gave its own zone."""
+    if table.time_basis == LOGGER_CLOCK or dep.offset_seconds == 0 or table.zone_offset_s == dep.offset_seconds:
+        return None
+    return (f"{shown_name(table.path)}: the file gives its own time zone ({table.time_zone}), so the register's "
+            f"clock_offset {dep.clock_offset} of deployment {dep.id} was not applied; check the register's "
+            "clock_offset (set it to the logger's display offset, or +00:00)")
+
+
+def file_provenance(table: RawTable) -> dict:
+    """What reading the file found beyond its records: kept with the dataset's provenance."""
+    out = {"layout": table.layout_name, "time_basis": table.time_basis}
+    if table.time_zone:
+        out["time_zone"] = table.time_zone
+    if table.header_values:
+        out["header_values"] = dict(table.header_values)
+    for key in ("skipped_lines", "bad_lines", "blank_lines", "truncated_last_line", "ambiguous_local_times",
+                "ambiguous_read_as_first"):
+        if table.counts.get(key):
+            out[key] = int(table.counts[key])
+    if table.skipped:
+        out["lines_not_read"] = [f"line {n}: {why}" for n, why in table.skipped]
+    return out
 
 
 def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
@@ -97,7 +133,7 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) 
                            f"{register.path.name}; add one with station, start and end")
     best = None
     for dep in deps:
-        t, err = _to_utc(table.logger_time, dep)
+        t, err = _to_utc(table.logger_time, dep, table.time_basis)
         inside = window_mask(t, start=_naive_utc(dep.start), end=_naive_utc(dep.end))
         n_in = int(inside.sum())
         if best is None or n_in > best[0]:
@@ -119,10 +155,16 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) 
     counts["out_of_order"] = int(np.count_nonzero(np.diff(ti) < 0))
     if counts["out_of_order"]:
         keep = keep[np.argsort(ti, kind="stable")]
+    provenance = file_provenance(table)
+    note = offset_note(table, dep)
+    notes = [note] if note else []
+    if note:
+        counts["clock_offset_not_applied"] = 1
+        provenance["clock_offset_not_applied"] = dep.clock_offset
     return IngestedFile(raw=raw, layout=table.layout_name, serial=inst.serial, kind=inst.kind,
                         station=dep.station, deployment=dep.id, time=t[keep],
                         values={k: v[keep] for k, v in table.values.items()}, units=table.units,
-                        counts=counts, clock_correction_s=err)
+                        counts=counts, clock_correction_s=err, provenance=provenance, notes=notes)
 
 
 __all__ = ["FileRejected", "IngestedFile", "ingest_file", "MatchError"]

@@ -1,25 +1,40 @@
 """Reading a raw logger file with its logger layout.
 
-``read_raw_file`` returns a :class:`RawTable`: logger-clock timestamps (naive
-datetime64[ns], as the logger wrote them), one float64 array per variable in
-raw units, the serial number found in the file, and counts of what was
-dropped while reading.  Raw files are only ever read.
+``read_raw_file`` returns a :class:`RawTable`: timestamps (naive
+datetime64[ns]; the logger's own clock, or UTC when the file says its zone --
+see ``time_basis``), one float64 array per variable in raw units, the serial
+number found in the file, the named header values, the lines that were not
+records, and counts of what was dropped while reading.  Raw files are only
+ever read.
+
+Fields are split by pandas' C CSV reader (quoting, runs of white space); the
+reader never splits a line itself.  Whole lines are filtered before that (blank
+lines, lines matching the layout's ``skip_lines``, repeats of the column-name
+row), and a marker field appended to every line tells how many fields the
+parser found on it, so short, long and truncated records are told apart
+without counting delimiters by hand.
 """
 
 from __future__ import annotations
 
 import codecs
+import csv
 import io
 import re
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from ..config.layouts import Layout
+from ..config.layouts import WHITESPACE, Layout, zone_of
 from ..errors import ParseError
+from ..units import same_unit
 from .fasttime import fixed_width_times
+
+#: the two ways a table's times can be given
+LOGGER_CLOCK, UTC = "logger_clock", "utc"
 
 
 @dataclass
@@ -27,10 +42,15 @@ class RawTable:
     path: Path
     layout_name: str
     serial: str
-    logger_time: np.ndarray                 # datetime64[ns], logger's own clock
+    logger_time: np.ndarray                 # datetime64[ns]: logger's own clock, or UTC (time_basis)
     values: dict[str, np.ndarray]           # variable -> float64, raw units
     units: dict[str, str]                   # variable -> raw unit
     counts: dict[str, int] = field(default_factory=dict)
+    time_basis: str = LOGGER_CLOCK          # "logger_clock": apply the register's clock_offset; "utc": done
+    time_zone: str = ""                     # where the zone of the stamps came from (when time_basis is utc)
+    zone_offset_s: int | None = None        # the file's one fixed UTC offset, when it has one
+    header_values: dict[str, str] = field(default_factory=dict)
+    skipped: list[tuple[int, str]] = field(default_factory=list)   # (line, "why: text"), the first few
 
     def __len__(self) -> int:
         return len(self.logger_time)
@@ -42,6 +62,12 @@ YEARS = (1680, 2259)
 #: texts that mean "not a number" whatever the layout's missing list says
 _NAN_TEXTS = ["nan", "+nan", "-nan"]
 _BOM_UTF8 = b"\xef\xbb\xbf"
+#: a field appended to every line before parsing; where it lands gives the line's field count
+_END = "\x1e\x1eqcpipe-end-of-line"
+#: skipped and bad lines listed by line number in the provenance (all are counted)
+LISTED_LINES = 20
+_ISO_ZONE = re.compile(r"[T ]\d{2}(?::?\d{2}){0,2}(?:[.,]\d+)?\s*(?:Z|[+-]\d{2}(?::?\d{2})?)$", re.IGNORECASE)
+_PARSER_SKIP = re.compile(r"Skipping line (\d+): expected \d+ fields, saw (\d+)")
 
 
 def shown_text(text) -> str:
@@ -58,11 +84,12 @@ def _decode(path: Path, data: bytes, encoding: str) -> str:
     if data.startswith(_BOM_UTF8) and not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
         data = data[len(_BOM_UTF8):]      # a UTF-8 byte-order mark is not part of the first line
     try:
-        return data.decode(encoding)
+        text = data.decode(encoding)
     except UnicodeError as err:
         line = data[: getattr(err, "start", 0)].count(b"\n") + 1
         raise ParseError(f"{shown_name(path)}: line {line}: bytes that are not {encoding} text; "
                          "check the logger layout's encoding or re-download the file") from None
+    return text.removeprefix("\ufeff")    # utf-16/32 without an explicit byte order keep the mark as text
 
 
 def serial_from_file(path: Path, header: list[str], layout: Layout) -> str:
@@ -80,6 +107,218 @@ def serial_from_file(path: Path, header: list[str], layout: Layout) -> str:
     return m.group(1).strip()
 
 
+def header_values(header: list[str], layout: Layout) -> dict[str, str]:
+    """Each named header value: the group of its pattern on the first header line it matches."""
+    out = {}
+    for key, pattern in layout.header_values.items():
+        rx = re.compile(pattern)
+        m = next((m for m in map(rx.search, header) if m), None)
+        if m is not None:
+            out[key] = m.group(1).strip()
+    return out
+
+
+def _needed_value(hv: dict, layout: Layout, key: str, what: str, name: str) -> str:
+    """The header value ``key``, which the layout needs for ``what``; ParseError when no header line gave it."""
+    if key not in hv:
+        raise ParseError(f"{name}: no header line gives {what} (header value {key!r}, pattern "
+                         f"{layout.header_values[key]!r}); check the file or the layout's header_values")
+    return hv[key]
+
+
+def _header_length(lines: list[str], layout: Layout, name: str, layout_name: str) -> int:
+    """Number of metadata lines before the column-name row (or the data)."""
+    if layout.header_ends is None:
+        return layout.header_lines
+    rx = re.compile(layout.header_ends)
+    k = next((i for i, ln in enumerate(lines) if rx.search(ln)), None)
+    if k is None:
+        raise ParseError(f"{name}: no line matches the header end {layout.header_ends!r} of layout "
+                         f"{layout_name!r} (the file is truncated or of another layout); check the file or the "
+                         "layout's header_ends")
+    return k + 1
+
+
+def _csv_options(layout: Layout, n_columns: int | None) -> dict:
+    sep = r"\s+" if layout.delimiter == WHITESPACE else layout.delimiter
+    names = None if n_columns is None else list(range(n_columns))
+    return dict(sep=sep, header=None, names=names, dtype=str, keep_default_na=False,
+                na_filter=False, engine="c", index_col=False, skip_blank_lines=False,
+                quoting=csv.QUOTE_MINIMAL if layout.quote else csv.QUOTE_NONE, quotechar=layout.quote or '"',
+                doublequote=True, skipinitialspace=layout.delimiter != WHITESPACE, on_bad_lines="warn")
+
+
+def _with_end(line: str, layout: Layout) -> str:
+    return f"{line}{' ' if layout.delimiter == WHITESPACE else layout.delimiter}{_END}"
+
+
+def _parse(lines: list[str], layout: Layout, n_fields: int, name: str, line_numbers: np.ndarray):
+    """Split ``lines`` into fields with pandas; returns the frame and each line's field count.
+
+    A line with more than ``n_fields`` fields has no row in the frame: its count is
+    given instead (rows of the frame are the other lines, in order).
+    """
+    text = "\n".join(_with_end(ln, layout) for ln in lines)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", pd.errors.ParserWarning)
+        try:
+            frame = pd.read_csv(io.StringIO(text), **_csv_options(layout, n_fields + 1))
+        except (ValueError, pd.errors.ParserError) as err:
+            m = re.search(r"row (\d+)", str(err))
+            where = f"line {line_numbers[int(m.group(1))]}: " if m and int(m.group(1)) < len(lines) else ""
+            raise ParseError(f"{name}: {where}cannot split the records into fields ({shown_text(err)}; an unclosed "
+                             f"quote {layout.quote!r}?); correct the file or the layout's quote and "
+                             "delimiter") from None
+    long_rows = {}
+    for w in caught:
+        for m in _PARSER_SKIP.finditer(str(w.message)):
+            long_rows[int(m.group(1)) - 1] = int(m.group(2)) - 1
+    counts = np.full(len(lines), -1, dtype=np.int64)
+    in_frame = np.ones(len(lines), dtype=bool)
+    in_frame[list(long_rows)] = False
+    kept = np.flatnonzero(in_frame)
+    if len(frame) != kept.size:
+        raise ParseError(f"{name}: {len(lines)} data lines but {len(frame) + len(long_rows)} records read (a "
+                         f"quoted field spans lines or a quote {layout.quote!r} is not closed); correct the file or "
+                         "set the layout's quote to \"\"")
+    for i, n in long_rows.items():
+        counts[i] = n
+    found = np.where(frame[n_fields].to_numpy(dtype=object) == _END, n_fields, -1)
+    for j in range(n_fields):                    # only the rare rows whose marker came early
+        odd = np.flatnonzero(found < 0)
+        if not odd.size:
+            break
+        found[odd[frame[j].to_numpy(dtype=object)[odd] == _END]] = j
+    counts[kept] = found
+    frame.index = kept
+    return frame, counts
+
+
+def _names_row(line: str, layout: Layout, name: str) -> list[str]:
+    text = _with_end(line, layout)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", pd.errors.ParserWarning)
+        try:
+            row = pd.read_csv(io.StringIO(text), **_csv_options(layout, None)).iloc[0].tolist()
+        except (ValueError, pd.errors.ParserError, IndexError) as err:
+            raise ParseError(f"{name}: cannot split the column-name row ({shown_text(err)}); check the file or "
+                             "the layout's quote and delimiter") from None
+    fields = [str(c) for c in row]
+    return [c.strip() for c in fields[:fields.index(_END)]] if _END in fields else [c.strip() for c in fields]
+
+
+def _local_to_utc(ns: np.ndarray, zone, label: str, name: str, line_numbers: np.ndarray,
+                  counts: dict) -> np.ndarray:
+    """UTC int64 ns from local int64 ns in ``zone`` (seconds east of UTC, or a ZoneInfo)."""
+    if isinstance(zone, int):
+        return ns - zone * 1_000_000_000
+    local = pd.DatetimeIndex(ns.astype("datetime64[ns]"))
+    gap = local.tz_localize(zone, ambiguous=np.ones(ns.size, bool), nonexistent="NaT").isna()
+    if gap.any():
+        i = int(np.flatnonzero(gap)[0])
+        raise ParseError(f"{name}: line {line_numbers[i]}: time {str(local[i])!r} does not exist in zone {label} "
+                         "(its clock skipped that hour); correct the file, or set the layout's time.zone to the "
+                         "fixed offset the logger really kept")
+    unsure = local.tz_localize(zone, ambiguous="NaT", nonexistent="NaT").isna()
+    counts["ambiguous_local_times"] = int(unsure.sum())
+    try:
+        aware = local.tz_localize(zone, ambiguous="infer")
+    except ValueError:
+        # not in time order through the repeated hour: take the first (daylight-saving) reading
+        aware = local.tz_localize(zone, ambiguous=np.ones(ns.size, bool))
+        counts["ambiguous_read_as_first"] = int(unsure.sum())
+    return aware.tz_convert("UTC").tz_localize(None).to_numpy(dtype="datetime64[ns]").astype(np.int64)
+
+
+def _epoch(stamp: pd.Series, unit: str):
+    """(int64 ns since 1970 UTC or 0, readable mask, in-range mask) of epoch stamps in ``unit``."""
+    x = pd.to_numeric(stamp, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    scale = 1.0 if unit == "s" else 1e3
+    seconds = x / scale
+    lo = (np.datetime64(f"{YEARS[0]}-01-01", "s") - np.datetime64("1970-01-01", "s")).astype(np.int64)
+    hi = (np.datetime64(f"{YEARS[1] + 1}-01-01", "s") - np.datetime64("1970-01-01", "s")).astype(np.int64)
+    ok = np.isfinite(x)
+    inside = ok & (seconds >= lo) & (seconds < hi)
+    # microseconds are exact in float64 over the whole range (< 2**53), then scaled in integers
+    micro = np.rint(np.where(inside, x, 0.0) * (1e6 / scale)).astype(np.int64)
+    return micro * 1000, ok, inside | ~ok
+
+
+def _times(stamp: pd.Series, layout: Layout, hv: dict, name: str, line_numbers: np.ndarray,
+           counts: dict):
+    """(int64 ns, readable, in-range, basis, zone label, fixed offset) of the joined stamps."""
+    spec = layout.time
+    fmt = spec.format
+    lo, hi = np.datetime64(f"{YEARS[0]}-01-01", "s"), np.datetime64(f"{YEARS[1] + 1}-01-01", "s")
+    if fmt in ("epoch_seconds", "epoch_milliseconds"):
+        ns, ok, inside = _epoch(stamp, "s" if fmt == "epoch_seconds" else "ms")
+        return ns, ok, inside, UTC, fmt, 0
+    if fmt == "iso8601":
+        has_zone = stamp.str.contains(_ISO_ZONE).to_numpy(dtype=bool, na_value=False)
+        parsed = pd.to_datetime(stamp.where(has_zone), format="ISO8601", utc=True, errors="coerce")
+        basis, label, fixed = UTC, "ISO 8601 offset of each row", None
+    elif "%z" in fmt:
+        parsed = pd.to_datetime(stamp, format=fmt, utc=True, errors="coerce")
+        basis, label, fixed = UTC, "UTC offset of each row", None
+    else:
+        fast = fixed_width_times(stamp.to_numpy(), fmt)
+        try:
+            parsed = (pd.Series(fast, index=stamp.index) if fast is not None
+                      else pd.to_datetime(stamp, format=fmt, errors="coerce"))
+        except (ValueError, TypeError) as err:
+            raise ParseError(f"{name}: times cannot be read with format {fmt!r} ({shown_text(err)}); correct the "
+                             "layout's time format") from None
+        basis, label, fixed = LOGGER_CLOCK, "", None
+    if getattr(parsed.dt, "tz", None) is not None:
+        parsed = parsed.dt.tz_localize(None)
+    sec = parsed.to_numpy(dtype="datetime64[s]")
+    ok = ~np.isnat(sec)
+    inside = ~ok | ((sec >= lo) & (sec < hi))
+    ns = np.where(ok & inside, parsed.to_numpy(dtype="datetime64[us]").astype(np.int64), 0) * 1000
+    zone_text = spec.zone if spec.zone_from is None else _needed_value(hv, layout, spec.zone_from, "the zone", name)
+    if zone_text is not None:
+        zone = zone_of(zone_text)
+        if zone is None:
+            raise ParseError(f"{name}: header value {spec.zone_from!r} is {zone_text!r}, neither a UTC offset nor "
+                             "a zone name; correct the layout's header_values pattern or set time.zone")
+        label = f"{zone_text} ({'header value ' + spec.zone_from if spec.zone_from else 'layout'})"
+        good = ok & inside
+        ns[good] = _local_to_utc(ns[good], zone, repr(zone_text), name, line_numbers[good], counts)
+        basis, fixed = UTC, zone if isinstance(zone, int) else None
+    return ns, ok, inside, basis, label, fixed
+
+
+def _numbers(col: pd.Series, layout: Layout):
+    """(float64 values, readable mask) of one column's texts (missing texts read as NaN)."""
+    is_missing = col.isin(set(layout.missing)).to_numpy(dtype=bool)
+    bad_group = np.zeros(len(col), dtype=bool)
+    if layout.thousands:
+        t, d = re.escape(layout.thousands), re.escape(layout.decimal)
+        grouped = col.str.contains(t, regex=True).to_numpy(dtype=bool, na_value=False)
+        well = col.str.fullmatch(rf"[+-]?\d{{1,3}}(?:{t}\d{{3}})+(?:{d}\d*)?(?:[eE][+-]?\d+)?")
+        bad_group = grouped & ~well.to_numpy(dtype=bool, na_value=False)
+        col = col.str.replace(layout.thousands, "", regex=False)
+    if layout.decimal == ",":
+        col = col.str.replace(",", ".", regex=False)
+    num = np.array(pd.to_numeric(col.where(~is_missing, None), errors="coerce"), dtype=np.float64)
+    said_nan = col.str.lower().isin(_NAN_TEXTS).to_numpy(dtype=bool)
+    readable = ~(np.isnan(num) & ~is_missing & ~said_nan) & ~(bad_group & ~is_missing)
+    num[bad_group] = np.nan
+    return num, readable
+
+
+def _refuse_or_skip(layout: Layout, name: str, bad: np.ndarray, message, skipped: list, counts: dict,
+                    line_numbers: np.ndarray, lines: list[str], why: str) -> np.ndarray:
+    """Raise ``message(i)`` for the first bad row, or (bad_lines = "skip") list and count them; keep mask."""
+    idx = np.flatnonzero(bad)
+    if idx.size and layout.bad_lines == "reject":
+        raise ParseError(f"{name}: {message(int(idx[0]))}")
+    for i in idx:
+        counts["bad_lines"] += 1
+        skipped.append((int(line_numbers[i]), f"{why}: {shown_text(lines[i])[:80]}"))
+    return ~bad
+
+
 def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> RawTable:
     """Parse one raw file with ``layout``; raise ParseError naming file, line and fix."""
     path = Path(path)
@@ -95,7 +334,10 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> Ra
     lines = text.split("\n")
     if lines and lines[-1] == "":
         lines.pop()
-    n_head = layout.header_lines + (1 if layout.column_names else 0)
+    if not "".join(lines).strip():
+        raise ParseError(f"{name}: file is empty; re-download it from the logger")
+    n_meta = _header_length(lines, layout, name, layout_name)
+    n_head = n_meta + (1 if layout.column_names else 0)
     if len(lines) < n_head:
         raise ParseError(f"{name}: only {len(lines)} lines, fewer than the {n_head} header lines of layout "
                          f"{layout_name!r} (the file is truncated or of another layout); re-download it "
@@ -104,99 +346,115 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> Ra
         raise ParseError(f"{name}: no data rows after the {n_head} header lines of layout {layout_name!r} "
                          "(the file is truncated or of another layout); re-download it or check which "
                          "layout reads it")
-    header = lines[: layout.header_lines]
+    header = lines[:n_meta]
     serial = serial_from_file(path, header, layout)
-    delim = layout.delimiter
-    if layout.column_names:
-        names = [c.strip() for c in lines[layout.header_lines].split(delim)]
-    else:
-        names = None
+    hv = header_values(header, layout)
+    for var, spec in layout.variables.items():
+        if spec.units_from is not None:
+            said = _needed_value(hv, layout, spec.units_from, f"the units of {var}", name)
+            if not same_unit(said, spec.units):
+                raise ParseError(f"{name}: the header says {var} is in {said!r} but layout {layout_name!r} reads it as "
+                                 f"{spec.units!r}; correct the layout's units or use a layout for that setting")
+    names = _names_row(lines[n_meta], layout, name) if layout.column_names else None
+    names_line = lines[n_meta].strip() if layout.column_names else None
     body = lines[n_head:]
-    counts = {"rows_read": len(body), "blank_lines": 0, "truncated_last_line": 0}
-    nonblank = [(i, ln) for i, ln in enumerate(body) if ln.strip()]
-    if not nonblank:
+    counts = {"rows_read": len(body), "blank_lines": 0, "truncated_last_line": 0, "skipped_lines": 0,
+              "bad_lines": 0}
+    skip_rx = re.compile("|".join(f"(?:{p})" for p in layout.skip_lines)) if layout.skip_lines else None
+    skipped: list[tuple[int, str]] = []
+    records: list[tuple[int, str]] = []
+    for i, ln in enumerate(body):
+        if not ln.strip():
+            counts["blank_lines"] += 1
+        elif names_line is not None and ln.strip() == names_line:
+            counts["skipped_lines"] += 1
+            skipped.append((n_head + i + 1, "column names repeated"))
+        elif skip_rx is not None and skip_rx.search(ln):
+            counts["skipped_lines"] += 1
+            skipped.append((n_head + i + 1, f"not a record: {shown_text(ln)[:80]}"))
+        else:
+            records.append((i, ln))
+    if not records:
         raise ParseError(f"{name}: no data rows after the header; re-download the file")
-    # expected field count from the column-name row, else from the first data row
-    n_fields = len(names) if names else len(nonblank[0][1].split(delim))
-    counts["blank_lines"] = len(body) - len(nonblank)
-    bad = [(i, ln) for i, ln in nonblank if ln.count(delim) + 1 != n_fields]
-    if bad and bad[-1][0] == nonblank[-1][0] and bad[-1][1].count(delim) + 1 < n_fields:
+    rec_lines = [ln for _, ln in records]
+    line_numbers = np.array([n_head + i + 1 for i, _ in records])
+    if names is None:
+        n_fields = len(_names_row(rec_lines[0], layout, name))
+    else:
+        n_fields = len(names)
+    frame, n_found = _parse(rec_lines, layout, n_fields, name, line_numbers)
+    wrong = n_found != n_fields
+    if wrong[-1] and 0 <= n_found[-1] < n_fields:
         # a short final line: the logger lost power or the download stopped mid-line
-        nonblank.pop()
-        bad.pop()
+        wrong[-1] = False
+        n_found[-1] = n_fields
         counts["truncated_last_line"] = 1
-    if bad:
-        i, ln = bad[0]
-        raise ParseError(f"{name}: line {n_head + i + 1}: {ln.count(delim) + 1} fields where "
-                         f"{n_fields} were expected (delimiter {delim!r}; the file is damaged or not of this "
-                         "logger layout); re-download it or check which layout reads it")
-    if not nonblank:
+        keep_rows = np.arange(len(rec_lines) - 1)
+    else:
+        keep_rows = np.arange(len(rec_lines))
+
+    def fields_message(i):
+        what = f"{n_found[i]} fields" if n_found[i] >= 0 else "fields that cannot be told apart"
+        return (f"line {line_numbers[i]}: {what} where {n_fields} were expected (delimiter "
+                f"{layout.delimiter!r}; the file is damaged or not of this logger layout); re-download it or "
+                "check which layout reads it")
+
+    ok = _refuse_or_skip(layout, name, wrong, fields_message, skipped, counts, line_numbers, rec_lines,
+                         "wrong number of fields")
+    keep_rows = keep_rows[ok[keep_rows]]
+    if not keep_rows.size:
         raise ParseError(f"{name}: no data rows after the header; re-download the file")
-    line_numbers = np.array([n_head + i + 1 for i, _ in nonblank])
-    try:
-        frame = pd.read_csv(io.StringIO("\n".join(ln for _, ln in nonblank)), sep=delim, header=None,
-                            names=list(range(n_fields)), dtype=str, keep_default_na=False,
-                            engine="c", quoting=3)
-    except (ValueError, pd.errors.ParserError) as err:
-        raise ParseError(f"{name}: cannot split the rows at {delim!r} ({shown_text(err)}); check the file "
-                         "or the layout's delimiter") from None
-    if len(frame) != len(nonblank):
-        raise ParseError(f"{name}: {len(nonblank)} data rows but {len(frame)} records read; check the file "
-                         "for stray line-break characters or re-download it")
+    frame = frame.loc[keep_rows]
+    line_numbers, rec_lines = line_numbers[keep_rows], [rec_lines[i] for i in keep_rows]
 
     def column(ref):
         if isinstance(ref, int):
             if ref >= n_fields:
                 raise ParseError(f"{name}: layout {layout_name!r} names column {ref} but rows have "
                                  f"{n_fields} fields; correct the logger layout")
-            return frame[ref]
+            return frame[ref].str.strip()
         if ref not in names:
             raise ParseError(f"{name}: no column {ref!r} in the column-name row {names} (the file is of "
                              "another layout or the layout's column name is wrong); check the file or "
                              "correct the layout")
-        return frame[names.index(ref)]
+        return frame[names.index(ref)].str.strip()
 
-    stamp = column(layout.time.columns[0]).str.strip()
+    stamp = column(layout.time.columns[0])
     for ref in layout.time.columns[1:]:
-        stamp = stamp + " " + column(ref).str.strip()
-    fast = fixed_width_times(stamp.to_numpy(), layout.time.format)
-    try:
-        times = (pd.Series(fast, index=stamp.index) if fast is not None
-                 else pd.to_datetime(stamp, format=layout.time.format, errors="coerce"))
-    except (ValueError, TypeError) as err:
-        raise ParseError(f"{name}: times cannot be read with format {layout.time.format!r} "
-                         f"({shown_text(err)}); correct the layout's time format") from None
-    bad_t = np.flatnonzero(times.isna().to_numpy())
-    if bad_t.size:
-        i = bad_t[0]
-        raise ParseError(f"{name}: line {line_numbers[i]}: time {stamp.iloc[i]!r} does not match "
-                         f"format {layout.time.format!r}; correct the file or the layout's time format")
-    try:
-        year = times.dt.year.to_numpy()
-    except AttributeError:                       # mixed UTC offsets give an object column
-        year = np.array([t.year for t in times])
-    out_of_range = np.flatnonzero((year < YEARS[0]) | (year > YEARS[1]))
-    if out_of_range.size:
-        i = out_of_range[0]
-        raise ParseError(f"{name}: line {line_numbers[i]}: time {stamp.iloc[i]!r} is not in the years "
-                         f"{YEARS[0]} to {YEARS[1]} (a reset or corrupted logger clock); correct the file "
-                         "or re-download it")
-    values, units = {}, {}
-    missing = set(layout.missing)
+        stamp = stamp + " " + column(ref)
+    stamp = stamp.reset_index(drop=True)
+    cols = {var: column(spec.column).reset_index(drop=True) for var, spec in layout.variables.items()}
+    fmt = layout.time.format
+    # rows are checked in stages (fields, time, years, values); each stage drops what it refuses
+    ns, readable, inside, basis, zone_label, fixed = _times(
+        stamp, layout, hv, name, line_numbers, counts)
+    keep = _refuse_or_skip(
+        layout, name, ~readable,
+        lambda i: (f"line {line_numbers[i]}: time {stamp.iloc[i]!r} does not match format {fmt!r}; correct the file "
+                   "or the layout's time format"), skipped, counts, line_numbers, rec_lines, "unreadable time")
+    keep &= _refuse_or_skip(
+        layout, name, ~inside & keep,
+        lambda i: (f"line {line_numbers[i]}: time {stamp.iloc[i]!r} is not in the years {YEARS[0]} to {YEARS[1]} "
+                   "(a reset or corrupted logger clock); correct the file or re-download it"),
+        skipped, counts, line_numbers, rec_lines, "time out of range")
+    values, units, nonfinite = {}, {}, {}
     for var, spec in layout.variables.items():
-        col = column(spec.column).str.strip()
-        if layout.decimal == ",":
-            col = col.str.replace(",", ".", regex=False)
-        is_missing = col.isin(missing).to_numpy()
-        num = np.array(pd.to_numeric(col.where(~is_missing, None), errors="coerce"), dtype=np.float64)
-        bad_v = np.flatnonzero(np.isnan(num) & ~is_missing & ~col.str.lower().isin(_NAN_TEXTS).to_numpy())
-        if bad_v.size:
-            i = bad_v[0]
-            raise ParseError(f"{name}: line {line_numbers[i]}: {var} value {col.iloc[i]!r} is not a "
-                             "number; correct the file or add the text to the layout's missing list")
-        nonfinite = ~np.isfinite(num) & ~np.isnan(num)
-        counts[f"{var}_nonfinite"] = int(nonfinite.sum())
-        num[nonfinite] = np.nan
+        num, good = _numbers(cols[var], layout)
+        keep &= _refuse_or_skip(
+            layout, name, ~good & keep,
+            lambda i, var=var: (f"line {line_numbers[i]}: {var} value {cols[var].iloc[i]!r} is not a number; "
+                                "correct the file or add the text to the layout's missing list"),
+            skipped, counts, line_numbers, rec_lines, f"{var} not a number")
+        nonfinite[var] = ~np.isfinite(num) & ~np.isnan(num)
+        num[nonfinite[var]] = np.nan
         values[var], units[var] = num, spec.units
-    t = times.to_numpy(dtype="datetime64[ns]")
-    return RawTable(path, layout_name, serial, t, values, units, counts)
+    if not keep.any():
+        raise ParseError(f"{name}: no readable records (every one was refused, see bad_lines); correct the file "
+                         "or the logger layout")
+    for var in values:
+        values[var] = values[var][keep]
+        counts[f"{var}_nonfinite"] = int(np.count_nonzero(nonfinite[var] & keep))
+    t = ns[keep].astype("datetime64[ns]")
+    skipped.sort()
+    return RawTable(path, layout_name, serial, t, values, units, counts, time_basis=basis, time_zone=zone_label,
+                    zone_offset_s=fixed, header_values=hv, skipped=skipped[:LISTED_LINES])

@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from qcpipe.units import UnitError, check_raw_unit, stored_unit, to_stored_units
+from qcpipe.units import UnitError, check_raw_unit, same_unit, stored_unit, to_stored_units
 
 cfunits = pytest.importorskip("cfunits")
 
@@ -61,3 +61,11 @@ def test_affine_on_any_value(x, raw):
     got = to_stored_units(np.array([x]), raw)[0]
     ref = cfunits.Units.conform(np.array([x]), cfunits.Units(raw), cfunits.Units(stored_unit(raw)))[0]
     assert got == pytest.approx(ref, rel=1e-10, abs=1e-7)
+
+
+@pytest.mark.parametrize("a, b, same", [
+    ("mS/cm", "mS cm-1", True), ("hPa", "mbar", True), ("\u00b0C", "degC", True),  # SI: 1 hPa = 1 mbar
+    ("hPa", "kPa", False), ("degF", "degC", False), ("deg C", "degC", False), ("blorps", "blorps", True)])
+def test_same_unit(a, b, same):
+    # a header's unit text against a layout's (README "Logger layouts", units_from)
+    assert same_unit(a, b) is same
