@@ -14,7 +14,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from . import __version__
-from .config._load import content_sha256
+from .config.loading import content_sha256
 from .files import sha256_of_file
 
 #: variables each instrument kind produces and the rule set is consulted for

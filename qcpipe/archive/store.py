@@ -17,7 +17,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from ..config._load import check_safe_id
+from ..config.loading import check_safe_id
 
 _UNSAFE = re.compile(r"[^A-Za-z0-9_.\-]")
 _SHA256 = re.compile(r"[0-9a-f]{64}")

@@ -24,7 +24,7 @@ from typing import Literal
 
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_validator
 
-from ._load import check_safe_id, content_sha256, read_toml, validate
+from .loading import check_safe_id, content_sha256, read_toml, validate
 
 
 class Annotation(BaseModel):

@@ -29,7 +29,7 @@ from ..errors import ConfigError
 from ..files import toml_text, write_text_atomic
 from ..tide.constituents import CONSTITUENTS
 from ..tide.harmonics import HarmonicConstant, TideConstants, constants_list
-from ._load import read_toml, validate
+from .loading import read_toml, validate
 
 
 class _ConstituentEntry(pydantic.BaseModel):

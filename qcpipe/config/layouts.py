@@ -61,7 +61,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from ..units import UnitError, check_raw_unit
 from .rules import VARIABLE_UNITS
-from ._load import check_safe_id, content_sha256, read_toml, validate
+from .loading import check_safe_id, content_sha256, read_toml, validate
 
 #: variables a layout can map columns to, by instrument kind
 VARIABLES_BY_KIND = {

@@ -29,7 +29,7 @@ from typing import Literal
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from ..errors import ConfigError
-from ._load import check_safe_id, content_sha256, read_toml, validate
+from .loading import check_safe_id, content_sha256, read_toml, validate
 
 InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure"]
 

@@ -30,7 +30,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from ..errors import ConfigError
 from ..units import seconds_from_duration
-from ._load import check_safe_id, content_sha256, read_toml, shown, shown_key, validate
+from .loading import check_safe_id, content_sha256, read_toml, shown, shown_key, validate
 
 #: stored units of each variable the checks can see
 VARIABLE_UNITS = {

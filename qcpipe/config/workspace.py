@@ -20,7 +20,7 @@ from pathlib import Path
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from ._load import read_toml, validate
+from .loading import read_toml, validate
 from .layouts import LoadedLayouts, load_layouts
 from .register import LoadedRegister, load_register
 from .rules import RuleSet, load_rules
