@@ -40,6 +40,7 @@ VARIABLES_BY_KIND = {
     "ph": {"ph", "ph_mv", "temperature"},
     "conductivity": {"conductivity", "temperature"},
     "pressure": {"pressure", "temperature"},
+    "barometer": {"air_pressure", "temperature"},
 }
 KNOWN_VARIABLES = set().union(*VARIABLES_BY_KIND.values())
 
