@@ -510,27 +510,25 @@ def main(argv=None) -> int:
         files[serial] = [(lg.spec["files"][0], idx1), (lg.spec["files"][1], idx2)]
 
     # --- a gap: rows missing from one file (after the overlap, so the first file cannot fill it)
-    lg = loggers["WD-0423"]
-    g0, g1 = secs(_t("2026-10-14T02:02:30Z")), secs(_t("2026-10-14T05:27:30Z"))
-    name2, idx2 = files["WD-0423"][1]
-    keep = ~((lg.utc_s[idx2] > g0) & (lg.utc_s[idx2] < g1))
-    removed = idx2[~keep]
-    files["WD-0423"][1] = (name2, idx2[keep])
-    after = idx2[keep][np.searchsorted(lg.utc_s[idx2[keep]], g1)]
+    def cut_rows(serial: str, start: str, end: str):
+        """Drop the samples strictly between start and end (UTC) from the logger's second file."""
+        lg = loggers[serial]
+        g0, g1 = secs(_t(start)), secs(_t(end))
+        name2, idx2 = files[serial][1]
+        keep = ~((lg.utc_s[idx2] > g0) & (lg.utc_s[idx2] < g1))
+        files[serial][1] = (name2, idx2[keep])
+        removed = idx2[~keep]
+        return lg, name2, removed, (lg.utc_s[removed[0] - 1], lg.utc_s[removed[-1] + 1])
+
+    lg, name2, removed, (before, after) = cut_rows("WD-0423", "2026-10-14T02:02:30Z", "2026-10-14T05:27:30Z")
     faults.append(dict(kind="gap", **base("WD-0423"), variable="wetness",
-                       file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(lg.utc_s[removed[0] - 1]),
-                       first_after_utc=iso_z(lg.utc_s[after]), n_missing=int(removed.size),
+                       file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(before),
+                       first_after_utc=iso_z(after), n_missing=int(removed.size),
                        flag=3, caught_by="gap", note="flag 3 at the first sample after the gap"))
 
     # --- a barometer gap: six hours missing from its second download (battery change), longer than
     #     the level logger's barometer_max_gap, so the water levels in it use the constant
-    lg = loggers["BAR-0107"]
-    g0, g1 = secs(_t("2026-10-09T03:10:00Z")), secs(_t("2026-10-09T09:10:00Z"))
-    name2, idx2 = files["BAR-0107"][1]
-    keep = ~((lg.utc_s[idx2] > g0) & (lg.utc_s[idx2] < g1))
-    removed = idx2[~keep]
-    files["BAR-0107"][1] = (name2, idx2[keep])
-    baro_gap = (lg.utc_s[removed[0] - 1], lg.utc_s[removed[-1] + 1])
+    lg, name2, removed, baro_gap = cut_rows("BAR-0107", "2026-10-09T03:10:00Z", "2026-10-09T09:10:00Z")
     faults.append(dict(kind="barometer_gap", **base("BAR-0107"), variable="air_pressure",
                        file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(baro_gap[0]),
                        first_after_utc=iso_z(baro_gap[1]), n_missing=int(removed.size), flag=3,
