@@ -46,67 +46,26 @@ def gsw_level(gauge, z) -> np.ndarray:
     return z + gauge / (rho * gsw.grav(LAT, 0.0))
 
 
-REGISTER = f"""
-[register]
-name = "barometer test shore (invented)"
-[[site]]
-id = "bay"
-name = "Test bay"
-vertical_datum = "test datum"
-[[station]]
-id = "hut"
-site = "bay"
-name = "Hut on the quay"
-latitude = {LAT}
-longitude = {LON}
-elevation_m = 5.0
-[[station]]
-id = "pile"
-site = "bay"
-name = "Quay pile"
-latitude = {LAT}
-longitude = {LON}
-elevation_m = -2.0
-[[station]]
-id = "ladder"
-site = "bay"
-name = "Quay ladder"
-latitude = {LAT}
-longitude = {LON}
-elevation_m = -1.0
-[[instrument]]
-serial = "B-1"
-kind = "barometer"
-layout = "air"
-[[instrument]]
-serial = "A-1"
-kind = "pressure"
-layout = "level"
-[[instrument]]
-serial = "V-1"
-kind = "pressure"
-layout = "level"
-[[deployment]]
-id = "hut-baro"
-station = "hut"
-instrument = "B-1"
-start = 2026-03-01T00:00:00Z
-end = 2026-03-02T00:00:00Z
-[[deployment]]
-id = "pile-absolute"
-station = "pile"
-instrument = "A-1"
-start = 2026-03-01T00:00:00Z
-end = 2026-03-02T00:00:00Z
-pressure = {{ air_pressure_hpa = {CONSTANT_HPA}, salinity = {SALINITY} }}
-[[deployment]]
-id = "ladder-vented"
-station = "ladder"
-instrument = "V-1"
-start = 2026-03-01T00:00:00Z
-end = 2026-03-02T00:00:00Z
-pressure = {{ vented = true, salinity = {SALINITY} }}
-"""
+#: (station, elevation_m, serial, kind, layout, deployment, pressure table or "")
+ENTRIES = [
+    ("hut", 5.0, "B-1", "barometer", "air", "hut-baro", ""),
+    ("pile", -2.0, "A-1", "pressure", "level", "pile-absolute",
+     f"pressure = {{ air_pressure_hpa = {CONSTANT_HPA}, salinity = {SALINITY} }}"),
+    ("ladder", -1.0, "V-1", "pressure", "level", "ladder-vented", f"pressure = {{ vented = true, salinity = {SALINITY} }}"),
+]
+
+
+def _register() -> str:
+    text = ['[register]\nname = "barometer test shore (invented)"\n'
+            '[[site]]\nid = "bay"\nname = "Test bay"\nvertical_datum = "test datum"\n']
+    for station, z, serial, kind, layout, dep, pressure in ENTRIES:
+        text.append(f'[[station]]\nid = "{station}"\nsite = "bay"\nname = "{station}"\nlatitude = {LAT}\n'
+                    f'longitude = {LON}\nelevation_m = {z}\n'
+                    f'[[instrument]]\nserial = "{serial}"\nkind = "{kind}"\nlayout = "{layout}"\n'
+                    f'[[deployment]]\nid = "{dep}"\nstation = "{station}"\ninstrument = "{serial}"\n'
+                    f'start = 2026-03-01T00:00:00Z\nend = 2026-03-02T00:00:00Z\n{pressure}\n')
+    return "".join(text)
+
 
 LAYOUTS = """
 [layout.air]
@@ -148,7 +107,7 @@ def _stamp(t) -> str:
 def run(tmp_path_factory):
     root = tmp_path_factory.mktemp("baro")
     (root / "inbox").mkdir()
-    (root / "register.toml").write_text(REGISTER)
+    (root / "register.toml").write_text(_register())
     (root / "layouts.toml").write_text(LAYOUTS)
     (root / "rules.toml").write_text(RULES)
     (root / "workspace.toml").write_text('[paths]\nregister = "register.toml"\nlayouts = "layouts.toml"\n'
