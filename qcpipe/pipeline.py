@@ -646,7 +646,7 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     site_of = {d.id: reg.station_by_id(d.station).site for d in reg.deployment}
     barometers = sorted(d for d in todo if _kind(ctx, d) == "barometer")
     todo |= {d for d in have_store if set(lineage.barometers_for(reg, d)) & set(barometers)}
-    new_gauge_sites = {site_of[d] for d in touched if _kind(ctx, d) == "pressure"}
+    new_gauge_sites = {site_of[d] for d in todo if _kind(ctx, d) == "pressure"}
     todo |= {d for d in have_store if _kind(ctx, d) == "immersion_probe" and site_of[d] in new_gauge_sites}
     new_probe_stations = {reg.deployment_by_id(d).station for d in todo if _kind(ctx, d) == "immersion_probe"}
     todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}

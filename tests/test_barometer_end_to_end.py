@@ -10,7 +10,7 @@ import pytest
 import xarray as xr
 
 from qcpipe import lineage, pipeline
-from tests.conftest import run_cli
+from tests.conftest import cf_check, run_cli
 
 LAT, LON = 50.1, -4.2
 SALINITY = 33.0
@@ -201,3 +201,11 @@ def test_barometer_is_planned_first_and_its_record_is_a_qc_input_of_the_level(ru
     assert ctx.catalog.latest_dataset("pile-absolute")["qc_key"] == lineage.qc_key(ctx, "pile-absolute")
     plan = pipeline.plan_qc(ctx, {"hut-baro"})
     assert plan.barometers == ["hut-baro"] and plan.gauges == ["pile-absolute"]
+
+
+def test_datasets_pass_the_cf_checker(run, cf_tables):
+    root, _ = run
+    paths = sorted((root / "archive" / "datasets").rglob("*.nc"))
+    assert len(paths) == 3
+    for path in paths:
+        cf_check(path, cf_tables)

@@ -180,17 +180,10 @@ def test_rejected_files_quarantined_with_reason(demo_run):
 # --- standards: CF checker, cf_xarray, standard names, flag scheme --------------------
 
 def test_cf_checker_reports_no_errors(demo_run, cf_tables):
-    # CF Checker (PyPI cfchecker) against CF-1.8 and the CF tables in tests/reference/cf
-    from cfchecker.cfchecks import CFChecker
+    from tests.conftest import cf_check
 
     for path in datasets(demo_run).values():
-        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
-                            cfAreaTypesXML=str(cf_tables["area_types"]),
-                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
-        checker.checker(str(path))
-        totals = checker.get_total_counts()
-        assert totals["FATAL"] == 0 and totals["ERROR"] == 0, (path.name, checker.all_messages)
-        assert totals["WARN"] == 0, (path.name, checker.all_messages)
+        cf_check(path, cf_tables)
 
 
 def _standard_name_table(cf_tables):
@@ -353,19 +346,14 @@ def derived_files(run, pattern):
 
 
 def test_derived_products_written_and_cf_clean(demo_run, cf_tables):
-    from cfchecker.cfchecks import CFChecker
+    from tests.conftest import cf_check
 
     names = [p.name for p in derived_files(demo_run, "*")]
     for product in ("_tide_events.nc", "_tide_events.csv", "_datums.csv", "_constituents.toml",
                     "_emersion_periods.nc", "_emersion_periods.csv", "_daily_exposure.nc", "_daily_exposure.csv"):
         assert any(n.endswith(product) for n in names), product
     for path in derived_files(demo_run, "*.nc"):
-        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
-                            cfAreaTypesXML=str(cf_tables["area_types"]),
-                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
-        checker.checker(str(path))
-        totals = checker.get_total_counts()
-        assert totals["FATAL"] == 0 and totals["ERROR"] == 0 and totals["WARN"] == 0, (path.name, checker.all_messages)
+        cf_check(path, cf_tables)
 
 
 def test_gauge_fit_recovers_the_site_constants(demo_run):

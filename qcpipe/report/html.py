@@ -832,6 +832,9 @@ def _station_html(station: str, archive: _Archive, run: dict, out_dir: Path) -> 
         body.append(_clock_section(ds, attrs))
         body.append(_exposure_section(archive, station, stem))
         body.append(_tide_section(archive, station, stem))
+    if not water_done:
+        body.append("<p class=\"muted\">Tide values in qcpipe's reports are for data quality control only, "
+                    "not for navigation or safety planning.</p>")
     stems = {Path(r["local_path"]).stem for r in rows}
     files = archive.derived_files(station, stems)
     if files:
