@@ -141,8 +141,8 @@ def _water_level(conv: Converted, p, deployment, station, times, barometer) -> N
     else:
         temp = np.where(np.isnan(temp), np.nanmean(temp), temp)
         temp_note = "the logger's own temperature"
-    if times is None:
-        times = np.zeros(p.size, "datetime64[ns]")
+    if times is None and barometer is not None:
+        raise ValueError("physical_from_raw: times are needed to interpolate the barometer to the samples")
     air_pa, source, air_words = _air_pressure(p, settings, times, barometer)
     sea_dbar = (p - air_pa) / 1.0e4
     rho = seawater_density_from_temperature(temp, salinity=salinity, sea_pressure_dbar=sea_dbar,

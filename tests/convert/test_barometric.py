@@ -194,3 +194,10 @@ def test_barometer_kind_stores_pascal():
                              deployment=_dep(), station=STATION)
     np.testing.assert_allclose(conv.variables["air_pressure"], [101325.0, 98060.0])
     assert "water_level" not in conv.variables
+
+
+def test_barometer_without_sample_times_is_refused():
+    baro = BarometerSeries(at_s(0), np.array([100000.0]), "b1 (v001)")
+    with pytest.raises(ValueError, match="times are needed"):
+        physical_from_raw("pressure", {"pressure": np.array([110000.0])}, {"pressure": "Pa"},
+                          deployment=_dep(), station=STATION, barometer=baro)
