@@ -72,9 +72,10 @@ def barometers_for(register, deployment_id: str) -> list[str]:
 def qc_inputs(ctx, deployment_id: str) -> dict:
     """Everything besides the store that decides a deployment's QC'd dataset.
 
-    A level logger that subtracts a barometer's air pressure depends on that
-    barometer's latest dataset (by the SHA-256 the catalog recorded for it): a
-    new barometer record re-QCs the level logger.
+    A level logger that subtracts a barometer's air pressure depends on what
+    made that barometer's latest dataset (its QC key and raw files, as the
+    catalog recorded them; not the file's own hash, which carries the run's
+    timestamps): a new barometer record re-QCs the level logger.
     """
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
@@ -85,8 +86,9 @@ def qc_inputs(ctx, deployment_id: str) -> dict:
     baro = barometers_for(reg, deployment_id)
     extra = {}
     if baro:
-        latest = {b: ctx.catalog.latest_dataset(b) for b in baro}
-        extra["barometer_datasets_sha256"] = {b: (row or {}).get("sha256") for b, row in latest.items()}
+        latest = {b: ctx.catalog.latest_dataset(b) or {} for b in baro}
+        extra["barometer_datasets"] = {b: {"qc_key": row.get("qc_key"), "raw_sha256": row.get("raw_sha256")}
+                                       for b, row in latest.items()}
     return {**extra,
         "rules": rules,
         "rule_settings": {"immersion": _dump(ctx.rules.immersion), "tide_timing": _dump(ctx.rules.tide_timing)},

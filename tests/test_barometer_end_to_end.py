@@ -197,7 +197,10 @@ def test_barometer_is_planned_first_and_its_record_is_a_qc_input_of_the_level(ru
     assert lineage.barometers_for(ctx.register, "ladder-vented") == []
     baro_row = ctx.catalog.latest_dataset("hut-baro")
     inputs = lineage.qc_inputs(ctx, "pile-absolute")
-    assert inputs["barometer_datasets_sha256"] == {"hut-baro": baro_row["sha256"]}
+    # what made the barometer's dataset (reproducible), not the file's hash (it carries run timestamps)
+    assert inputs["barometer_datasets"] == {"hut-baro": {"qc_key": lineage.qc_key(ctx, "hut-baro"),
+                                                         "raw_sha256": baro_row["raw_sha256"]}}
+    assert len(baro_row["raw_sha256"]) == 1
     assert ctx.catalog.latest_dataset("pile-absolute")["qc_key"] == lineage.qc_key(ctx, "pile-absolute")
     plan = pipeline.plan_qc(ctx, {"hut-baro"})
     assert plan.barometers == ["hut-baro"] and plan.gauges == ["pile-absolute"]
