@@ -1,10 +1,11 @@
-"""The nightly flow: discover new downloads, ingest each file, QC gauges, then stations.
+"""The nightly flow: discover new downloads, ingest each file, QC barometers, gauges, then stations.
 
 Science lives in ``qcpipe``; this module only puts pipeline functions in
 order.  Files are read in parallel and merged into their deployments' stores
 in parallel; deployments whose register entry, layout, rules or annotations
 changed since their latest dataset are re-processed too (by content hash);
-then water-level gauges are QC'd (they are the site's reference level), then
+then barometers are QC'd (the level loggers of their site subtract their air
+pressure), then water-level gauges (they are the site's reference level), then
 stations in parallel, each probe first (its immersion state is attached to
 every other instrument of the station).  Prefect's default thread runner
 (NetCDF access is serialised in ``qcpipe.archive.ncio``), or the workers of a

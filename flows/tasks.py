@@ -110,6 +110,12 @@ def qc_gauge(job: Job, deployment_id, files, tide) -> pipeline.DeploymentResult:
     return pipeline.qc_deployment(job.context(), deployment_id, new_files=files, tide=tide, run_id=job.run_id)
 
 
+@retrying_task("qc-barometer")
+def qc_barometer(job: Job, deployment_id, files) -> pipeline.DeploymentResult:
+    """QC a barometer deployment (its air pressure is subtracted by the level loggers of its site)."""
+    return pipeline.qc_deployment(job.context(), deployment_id, new_files=files, run_id=job.run_id)
+
+
 @retrying_task("qc-station")
 def qc_station(job: Job, station_id, deployment_ids, files, tide) -> list:
     """QC one station's deployments (probe first) and write its exposure products."""
@@ -181,9 +187,11 @@ def close_run(ctx, run_id: int, outcome: str, summary: pipeline.RunSummary) -> N
 
 def run_plan(ctx, plan: pipeline.QcPlan, by_dep: dict, summary: pipeline.RunSummary,
              run_id: int | None = None) -> None:
-    """Submit the plan's QC tasks in dependency order: gauges, then stations in parallel."""
+    """Submit the plan's QC tasks in dependency order: barometers, gauges, then stations in parallel."""
     job = Job.of(ctx, run_id)
     site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
+    for fut in [qc_barometer.submit(job, d, by_dep.get(d, [])) for d in plan.barometers]:
+        summary.results.append(fut.result())
     tides = {site: pipeline.site_tide(ctx, site) for site in plan.sites}
     for fut in [qc_gauge.submit(job, d, by_dep.get(d, []), tides[site_of[d]]) for d in plan.gauges]:
         summary.results.append(fut.result())

@@ -24,6 +24,7 @@ KIND_VARIABLES = {
     "ph": ("ph", "temperature"),
     "conductivity": ("conductivity", "temperature"),
     "pressure": ("temperature", "pressure", "water_level"),
+    "barometer": ("air_pressure", "temperature"),
 }
 
 
@@ -51,15 +52,44 @@ def ingest_key(ctx, deployment_id: str) -> str:
     return content_sha256(ingest_inputs(ctx, deployment_id))
 
 
+def barometers_for(register, deployment_id: str) -> list[str]:
+    """Barometer deployments whose air pressure a pressure-logger deployment subtracts (sorted ids).
+
+    Those at any station of the logger's site that overlap its deployment in
+    time; none for other kinds, vented loggers and ``use_barometer = false``.
+    """
+    dep = register.deployment_by_id(deployment_id)
+    if register.instrument_by_serial(dep.instrument).kind != "pressure":
+        return []
+    if dep.pressure is not None and not dep.pressure.uses_barometer:
+        return []
+    site = register.station_by_id(dep.station).site
+    return sorted(d.id for d in register.deployment
+                  if register.instrument_by_serial(d.instrument).kind == "barometer"
+                  and register.station_by_id(d.station).site == site and d.start < dep.end and d.end > dep.start)
+
+
 def qc_inputs(ctx, deployment_id: str) -> dict:
-    """Everything besides the store that decides a deployment's QC'd dataset."""
+    """Everything besides the store that decides a deployment's QC'd dataset.
+
+    A level logger that subtracts a barometer's air pressure depends on what
+    made that barometer's latest dataset (its QC key and raw files, as the
+    catalog recorded them; not the file's own hash, which carries the run's
+    timestamps): a new barometer record re-QCs the level logger.
+    """
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
     station = reg.station_by_id(dep.station)
     site = reg.site_by_id(station.site)
     inst = reg.instrument_by_serial(dep.instrument)
     rules = {v: ctx.rules.effective_dict(v, station.id) for v in KIND_VARIABLES[inst.kind]}
-    return {
+    baro = barometers_for(reg, deployment_id)
+    extra = {}
+    if baro:
+        latest = {b: ctx.catalog.latest_dataset(b) or {} for b in baro}
+        extra["barometer_datasets"] = {b: {"qc_key": row.get("qc_key"), "raw_sha256": row.get("raw_sha256")}
+                                       for b, row in latest.items()}
+    return {**extra,
         "rules": rules,
         "rule_settings": {"immersion": _dump(ctx.rules.immersion), "tide_timing": _dump(ctx.rules.tide_timing)},
         "register": {"deployment": _dump(dep), "station": _dump(station), "site": _dump(site),

@@ -18,7 +18,7 @@ import xarray as xr
 
 from . import __version__
 from .archive.catalog import Catalog, utc_now
-from .archive.cf import build_cf_dataset
+from .archive.cf import add_air_pressure, build_cf_dataset
 from .archive.ncio import read_attrs, read_dataset, write_dataset_atomic
 from .archive.store import ArchivePaths
 from .files import copy_atomic, write_text_atomic
@@ -27,7 +27,8 @@ from .config.annotations import Annotations
 from .config.layouts import LoadedLayouts
 from .config.register import LoadedRegister
 from .config.rules import RuleSet
-from .convert.by_kind import physical_from_raw
+from .checks import barometer_fallback_flags
+from .convert.by_kind import AIR_FROM_CONSTANT, BarometerSeries, physical_from_raw
 from . import lineage, progress
 from .ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file
 from .files import sha256_of_file
@@ -123,6 +124,7 @@ class DeploymentResult:
     counts: dict = field(default_factory=dict)
     notices: list = field(default_factory=list)    # what needs a person's attention
     products: list = field(default_factory=list)   # derived files written beside the dataset
+    air_pressure: dict = field(default_factory=dict)  # level loggers: where the subtracted air pressure came from
 
 
 @dataclass
@@ -267,7 +269,9 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     site = reg.site_by_id(station.site)
     store = store or load_store(ctx, deployment_id)
     counts = store.counts
-    conv = physical_from_raw(store.kind, store.values, store.units, deployment=dep, station=station)
+    barometer = site_barometer(ctx, dep.id) if store.kind == "pressure" else None
+    conv = physical_from_raw(store.kind, store.values, store.units, deployment=dep, station=station,
+                             times=store.time, barometer=barometer)
     conflicts = {k: store.conflict[k] for k in conv.variables if k in store.conflict}
     for var_out, raw in (("wetness", "probe_reading"), ("water_level", "pressure"), ("ph", "ph_mv")):
         if raw in store.conflict and var_out in conv.variables:
@@ -291,6 +295,8 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         transitions = analysis
         qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
                        readings=store.values["probe_reading"], extra={"wetness": {"immersion_quality": analysis.quality}})
+    elif store.kind == "barometer":
+        tide_attrs["immersion_source"] = "none (a barometer measures air pressure; immersion does not apply)"
     else:
         state, source = station_immersion(ctx, station, store.time, tide)
         conv.immersion = state
@@ -298,6 +304,9 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         qc_args = dict(immersion=state)
         if store.kind == "pressure" and tide is not None:
             qc_args["predicted_level"] = tide.predicted(store.time)
+    if conv.barometer_used:
+        qc_args["extra"] = {"water_level": {"barometer_fallback": barometer_fallback_flags(
+            conv.variables["water_level"], conv.air_pressure_source == AIR_FROM_CONSTANT)}}
     notes_manual: dict[str, list[str]] = {}
     manual: dict[str, list] = {}
     for a in ctx.annotations.for_station(station.id):
@@ -326,7 +335,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         history = f"{read_attrs(prev['path']).get('history', '')}\n{history}".strip()
     provenance = dict(rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
                       raw_files=list(zip(store.names, store.sources)), software_version=__version__,
-                      notes=conv.notes,
+                      notes=conv.notes, meta=conv.meta,
                       extra_attrs=dict(conv.attrs, clock_offset_declared=dep.clock_offset,
                                        clock_drift_at_check_s=round(float(store.clock_drift_s), 3),
                                        samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
@@ -343,6 +352,8 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
                                provenance=provenance, version=version, history=history, raw_units=store.units)
     if transitions is not None and transitions.transition_time is not None:
         _add_transitions(ds, enc, transitions)
+    if conv.air_pressure is not None:
+        add_air_pressure(ds, enc, conv.air_pressure, conv.air_pressure_source)
     for var, lines in notes_manual.items():
         ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
     first = cat.dataset_versions(dep.id)
@@ -377,7 +388,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     run_counts = _run_counts(new_files, counts)
     progress.step("qc", f"{station.id}/{dep.id} v{version:03d}")
     return DeploymentResult(station.id, dep.id, out_path, version, int(store.time.size), fc, run_counts,
-                            notices, products)
+                            notices, products, air_pressure_summary(conv.attrs))
 
 
 def _run_counts(new_files, store_counts: dict) -> dict:
@@ -508,6 +519,62 @@ def stale_deployments(ctx: Context) -> dict[str, list[str]]:
     return out
 
 
+def air_pressure_summary(attrs: dict) -> dict:
+    """Where a level dataset's air pressure came from, from its attributes ({} for other kinds)."""
+    if "water_level_air_pressure_source" not in attrs:
+        return {}
+    out = {"source": str(attrs["water_level_air_pressure_source"]), "sensor": str(attrs.get("pressure_sensor", ""))}
+    if "water_level_air_pressure_from_barometer" in attrs:
+        out.update(barometer=str(attrs["water_level_air_pressure_barometer"]),
+                   from_barometer=int(attrs["water_level_air_pressure_from_barometer"]),
+                   from_constant=int(attrs["water_level_air_pressure_from_constant"]),
+                   constant_hpa=float(attrs["water_level_air_pressure_pa"]) / 100.0)
+    return out
+
+
+# --- the barometer of a site ---------------------------------------------------------
+
+def site_barometer(ctx: Context, deployment_id: str) -> BarometerSeries | None:
+    """The valid air pressure a level logger subtracts: its site's barometer datasets, merged.
+
+    The barometer deployments are :func:`lineage.barometers_for` (None when
+    there are none: the configured constant is used, unflagged); each from its
+    latest dataset version, without samples whose aggregate flag is fail or
+    missing.  An empty series when none has a dataset yet (every level then
+    falls back to the constant and is flagged).
+    """
+    ids = lineage.barometers_for(ctx.register, deployment_id)
+    if not ids:
+        return None
+    found = _latest_valid(ctx, ids, "air_pressure")
+    if found is None:
+        return BarometerSeries(np.array([], "datetime64[ns]"), np.array([], np.float64), "")
+    t, v, rows = found
+    return BarometerSeries(t, v, ", ".join(f"{d} (v{version:03d})" for d, version in rows))
+
+
+def _latest_valid(ctx: Context, deployment_ids, variable: str):
+    """One variable of the deployments' latest datasets, merged in time order, without fail or missing samples.
+
+    Returns (times, values, [(deployment, version), ...]) or None when none has a dataset.
+    """
+    times, values, rows = [], [], []
+    for d in deployment_ids:
+        latest = ctx.catalog.latest_dataset(d)
+        if latest is None or not Path(latest["path"]).exists():
+            continue
+        ds = read_dataset(latest["path"])
+        keep = ~np.isin(ds[f"{variable}_qc"].values, (4, 9))
+        times.append(ds["time"].values[keep])
+        values.append(ds[variable].values[keep])
+        rows.append((d, latest["version"]))
+    if not times:
+        return None
+    t = np.concatenate(times)
+    order = np.argsort(t, kind="stable")
+    return t[order], np.concatenate(values)[order], rows
+
+
 # --- the tide around a station ----------------------------------------------------
 
 def _kind(ctx: Context, deployment_id: str) -> str:
@@ -523,23 +590,13 @@ def site_tide(ctx: Context, site_id: str) -> SiteTide:
     """
     path = ctx.register.constituents_path(site_id)
     constants = load_constituents(path) if path is not None else None
-    times, levels, names = [], [], []
-    for dep in ctx.register.deployment:
-        if ctx.register.station_by_id(dep.station).site != site_id or _kind(ctx, dep.id) != "pressure":
-            continue
-        latest = ctx.catalog.latest_dataset(dep.id)
-        if latest is None or not Path(latest["path"]).exists():
-            continue
-        ds = read_dataset(latest["path"])
-        keep = ~np.isin(ds["water_level_qc"].values, (4, 9))
-        times.append(ds["time"].values[keep])
-        levels.append(ds["water_level"].values[keep])
-        names.append(dep.id)
-    if not times:
+    gauges = [d.id for d in ctx.register.deployment
+              if ctx.register.station_by_id(d.station).site == site_id and _kind(ctx, d.id) == "pressure"]
+    found = _latest_valid(ctx, gauges, "water_level")
+    if found is None:
         return SiteTide(site_id, constants)
-    t = np.concatenate(times)
-    order = np.argsort(t, kind="stable")
-    return SiteTide(site_id, constants, t[order], np.concatenate(levels)[order], ", ".join(names))
+    t, levels, rows = found
+    return SiteTide(site_id, constants, t, levels, ", ".join(d for d, _ in rows))
 
 
 def station_immersion(ctx: Context, station, times, tide: SiteTide | None) -> tuple[np.ndarray, str]:
@@ -576,34 +633,38 @@ def station_immersion(ctx: Context, station, times, tide: SiteTide | None) -> tu
 
 @dataclass
 class QcPlan:
-    """Deployments to (re-)QC, in dependency order: gauges first, then stations (probe first)."""
+    """Deployments to (re-)QC, in dependency order: barometers, gauges, then stations (probe first)."""
     gauges: list[str]
     stations: dict[str, list[str]]
     sites: list[str]
+    barometers: list[str] = field(default_factory=list)
 
 
 def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     """Which deployments a run must QC, given those that received new data.
 
-    A new gauge record changes the reference level of every probe at its site;
-    a new probe record changes the immersion state of every instrument at its
-    station: their datasets are re-QC'd from the stored pre-QC level.
+    A new barometer record changes the air pressure of the level loggers at its
+    site; a new gauge record changes the reference level of every probe at its
+    site; a new probe record changes the immersion state of every instrument at
+    its station: their datasets are re-QC'd from the stored pre-QC level.
     """
     reg = ctx.register
     have_store = {d.id for d in reg.deployment if ctx.paths.ingested(d.station, d.id).exists()} | set(touched)
     todo = set(touched)
     site_of = {d.id: reg.station_by_id(d.station).site for d in reg.deployment}
-    new_gauge_sites = {site_of[d] for d in touched if _kind(ctx, d) == "pressure"}
+    barometers = sorted(d for d in todo if _kind(ctx, d) == "barometer")
+    todo |= {d for d in have_store if set(lineage.barometers_for(reg, d)) & set(barometers)}
+    new_gauge_sites = {site_of[d] for d in todo if _kind(ctx, d) == "pressure"}
     todo |= {d for d in have_store if _kind(ctx, d) == "immersion_probe" and site_of[d] in new_gauge_sites}
     new_probe_stations = {reg.deployment_by_id(d).station for d in todo if _kind(ctx, d) == "immersion_probe"}
     todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}
     order = {"pressure": 0, "immersion_probe": 1}
     gauges = sorted(d for d in todo if _kind(ctx, d) == "pressure")
     stations: dict[str, list[str]] = {}
-    for d in sorted(todo - set(gauges), key=lambda d: (order.get(_kind(ctx, d), 2), d)):
+    for d in sorted(todo - set(gauges) - set(barometers), key=lambda d: (order.get(_kind(ctx, d), 2), d)):
         stations.setdefault(reg.deployment_by_id(d).station, []).append(d)
     progress.expect("qc", len(todo))
-    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}))
+    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}), barometers)
 
 
 def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_files: dict[str, list],
@@ -627,6 +688,14 @@ def group_by_deployment(files: list[IngestedFile]) -> dict[str, list[IngestedFil
 
 
 # --- summary ---------------------------------------------------------------------
+
+def air_pressure_words(a: dict) -> str:
+    """One line on a level dataset's air pressure (from :func:`air_pressure_summary`)."""
+    if "from_barometer" not in a:
+        return a["source"]
+    n = a["from_barometer"] + a["from_constant"]
+    return (f"barometer {a['barometer'] or '(no data yet)'} at {a['from_barometer']} of {n} samples; configured "
+            f"constant {a['constant_hpa']:.2f} hPa at {a['from_constant']} (flagged suspect by barometer_fallback)")
 
 FLAG_WORDS = {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
 
@@ -689,6 +758,10 @@ class RunSummary:
             parts = "; ".join(f"{var}: " + " ".join(f"{FLAG_WORDS[k][:4]}={v}" for k, v in sorted(per.items()))
                               for var, per in r.flag_counts.items())
             out.append(f"  {r.station}/{r.deployment} v{r.version:03d}: {parts}")
+        baro = [r for r in self.results if r.air_pressure]
+        if baro:
+            out.append("barometric correction (air pressure subtracted for water level):")
+            out += [f"  {r.station}/{r.deployment}: {air_pressure_words(r.air_pressure)}" for r in baro]
         notices = list(self.notices) + [n for r in self.results for n in r.notices]
         if notices:
             out.append("needs attention:")

@@ -81,3 +81,17 @@ def cf_tables(tmp_path_factory) -> dict:
         dest.write_bytes(gzip.decompress((CF_TABLES / f"{name}.gz").read_bytes()))
         paths[key] = dest
     return paths
+
+
+def cf_check(path, cf_tables) -> None:
+    """CF Checker (PyPI cfchecker) against CF-1.8 and the CF tables in tests/reference/cf:
+    no fatal errors, errors or warnings."""
+    from cfchecker.cfchecks import CFChecker
+
+    checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
+                        cfAreaTypesXML=str(cf_tables["area_types"]),
+                        cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
+    checker.checker(str(path))
+    totals = checker.get_total_counts()
+    assert totals["FATAL"] == 0 and totals["ERROR"] == 0, (Path(path).name, checker.all_messages)
+    assert totals["WARN"] == 0, (Path(path).name, checker.all_messages)

@@ -68,7 +68,7 @@ def test_holdings_on_empty_archive(demo_copy):
 def test_holdings_lists_demo_run(demo_run):
     r = run_cli("holdings", "--workspace", str(demo_run.workspace))
     assert r.returncode == 0, r.stderr
-    assert "datasets (8):" in r.stdout and "quarantined" in r.stdout and "runs (2):" in r.stdout
+    assert "datasets (9):" in r.stdout and "quarantined" in r.stdout and "runs (2):" in r.stdout
     assert "nothing new" in r.stdout
 
 

@@ -122,10 +122,10 @@ def test_tasks_ran_on_both_workers_and_only_with_dask(two_runs):
     assert after_default == before, "the default runner must not use the cluster"
     ran = {w: after_dask[w] - after_default[w] for w in after_dask}
     assert len(ran) == 2 and all(n >= 3 for n in ran.values()), ran
-    # 18 files read, 8 deployments merged, 1 gauge and 3 stations QC'd, the run report's pages of
-    # those 4 stations rendered (the two rejected files are quarantined and the report's index is
-    # written in the flow's own process)
-    assert sum(ran.values()) == 18 + 8 + 1 + 3 + 4, ran
+    # 20 files read, 9 deployments merged, 1 barometer, 1 gauge and 3 stations QC'd, the run report's
+    # pages of those 5 stations rendered (the two rejected files are quarantined and the report's index
+    # is written in the flow's own process)
+    assert sum(ran.values()) == 20 + 9 + 1 + 1 + 3 + 5, ran
 
 
 def test_both_runs_succeed_quietly(two_runs):
@@ -133,7 +133,7 @@ def test_both_runs_succeed_quietly(two_runs):
         out = two_runs[name][1]
         assert "Traceback" not in out["stderr"], out["stderr"][-3000:]
         assert "database is locked" not in out["stderr"]
-        assert "16 ingested, 2 quarantined" in out["lines"][0], out["lines"]
+        assert "18 ingested, 2 quarantined" in out["lines"][0], out["lines"]
     assert two_runs["default"][1]["lines"] == [
         ln.replace(str(two_runs["dask"][0]), str(two_runs["default"][0])) for ln in two_runs["dask"][1]["lines"]]
 
@@ -142,7 +142,7 @@ def test_same_datasets_and_flags(two_runs):
     (root_a, _), (root_b, _) = two_runs["default"], two_runs["dask"]
     a = {p.relative_to(root_a) for p in (root_a / "demo_archive" / "datasets").rglob("*.nc")}
     b = {p.relative_to(root_b) for p in (root_b / "demo_archive" / "datasets").rglob("*.nc")}
-    assert a == b and len(a) == 8, (sorted(a), sorted(b))       # names carry station, deployment, version
+    assert a == b and len(a) == 9, (sorted(a), sorted(b))       # names carry station, deployment, version
     for rel in sorted(a):
         da, db = _clean(_open(root_a / rel), root_a), _clean(_open(root_b / rel), root_b)
         assert sorted(da.data_vars) == sorted(db.data_vars)

@@ -6,6 +6,7 @@ import importlib.util
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from qcpipe.config import load_workspace
@@ -53,9 +54,9 @@ def test_generator_is_deterministic(regenerated, tmp_path):
 def test_demo_workspace_loads():
     register, layouts, rules = load_workspace(SAMPLE / "workspace.toml").load()
     kinds = sorted({i.kind for i in register.instrument})
-    assert kinds == ["immersion_probe", "ph", "pressure", "temperature"]
+    assert kinds == ["barometer", "immersion_probe", "ph", "pressure", "temperature"]
     assert len(register.deployment) == len(register.instrument)
-    for variable in ("temperature", "ph", "pressure", "water_level", "wetness"):
+    for variable in ("temperature", "ph", "pressure", "water_level", "wetness", "air_pressure"):
         assert rules.for_variable(variable) is not None, variable
 
 
@@ -74,7 +75,7 @@ def test_answer_key_names_known_deployments():
     assert {d["deployment"] for d in key["deployments"]} == deployments
     kinds = {f["kind"] for f in key["faults"]}
     assert {"spike", "stuck_value", "out_of_range", "gap", "clock_drift", "clock_one_hour_off",
-            "overlap_conflict", "unparseable_file", "unknown_serial"} <= kinds
+            "overlap_conflict", "unparseable_file", "unknown_serial", "barometer_spike", "barometer_gap"} <= kinds
     for fault in key["faults"]:
         assert fault["flag"] in (None, 3, 4)
         if fault["kind"] == "unknown_serial":
@@ -88,3 +89,20 @@ def test_answer_key_names_known_deployments():
 def test_sample_raw_is_small():
     total = sum(p.stat().st_size for p in SAMPLE.rglob("*") if p.is_file())
     assert total < MAX_BYTES, f"sample_raw/ holds {total} bytes; keep it under {MAX_BYTES}"
+
+
+def test_answer_key_barometer_fallback_is_consistent():
+    # the level logger falls back to the constant before the barometer's first sample, after its last
+    # and inside its gap; the three counts add up, and the gap is longer than the level logger's
+    # barometer_max_gap (the register's default, 2 h) while the barometer's own step (30 min) is not
+    key = json.loads((SAMPLE / "injected.json").read_text("utf-8"))
+    fb = key["barometer_fallback"]
+    parts = (fb["before_first_barometer_sample"]["n"], fb["after_last_barometer_sample"]["n"],
+             fb["in_barometer_gap"]["n"])
+    assert all(n > 0 for n in parts) and sum(parts) == fb["total"]
+    (gap,) = [f for f in key["faults"] if f["kind"] == "barometer_gap"]
+    span = np.datetime64(gap["first_after_utc"].rstrip("Z")) - np.datetime64(gap["last_before_utc"].rstrip("Z"))
+    assert span > np.timedelta64(fb["max_gap_s"], "s")
+    register, _, _ = load_workspace(SAMPLE / "workspace.toml").load()
+    level = register.deployment_by_id(fb["deployment"])
+    assert level.pressure.barometer_max_gap == fb["max_gap_s"]

@@ -45,7 +45,7 @@ def test_first_run_succeeds_quietly(demo_run):
     assert not re.search(r"\b(ERROR|CRITICAL)\b", demo_run.first.stderr), demo_run.first.stderr
     assert "telemetry" not in demo_run.first.stderr.lower()
     out = demo_run.first.stdout
-    assert "16 ingested, 2 quarantined" in out
+    assert "18 ingested, 2 quarantined" in out
     assert "flags (aggregate, all variables): pass" in out
     assert "outputs:" in out
 
@@ -180,17 +180,10 @@ def test_rejected_files_quarantined_with_reason(demo_run):
 # --- standards: CF checker, cf_xarray, standard names, flag scheme --------------------
 
 def test_cf_checker_reports_no_errors(demo_run, cf_tables):
-    # CF Checker (PyPI cfchecker) against CF-1.8 and the CF tables in tests/reference/cf
-    from cfchecker.cfchecks import CFChecker
+    from tests.conftest import cf_check
 
     for path in datasets(demo_run).values():
-        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
-                            cfAreaTypesXML=str(cf_tables["area_types"]),
-                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
-        checker.checker(str(path))
-        totals = checker.get_total_counts()
-        assert totals["FATAL"] == 0 and totals["ERROR"] == 0, (path.name, checker.all_messages)
-        assert totals["WARN"] == 0, (path.name, checker.all_messages)
+        cf_check(path, cf_tables)
 
 
 def _standard_name_table(cf_tables):
@@ -218,7 +211,7 @@ def test_standard_names_in_table_with_compatible_units(demo_run, cf_tables):
                 assert Units(units).equivalent(Units(canonical)), (name, units, canonical)
     assert {"gross_range_test_quality_flag", "spike_test_quality_flag", "rate_of_change_test_quality_flag",
             "flat_line_test_quality_flag", "gap_test_quality_flag", "aggregate_quality_flag",
-            "water_surface_height_above_reference_datum"} <= seen
+            "water_surface_height_above_reference_datum", "air_pressure"} <= seen
 
 
 def test_flags_follow_ioc_scheme_and_decode_with_cf_xarray(demo_run):
@@ -247,7 +240,7 @@ def test_flags_follow_ioc_scheme_and_decode_with_cf_xarray(demo_run):
 def test_each_data_variable_names_its_flags(demo_run):
     for path in datasets(demo_run).values():
         ds = open_nc(path)
-        for name in ("temperature", "ph", "wetness", "water_level", "pressure"):
+        for name in ("temperature", "ph", "wetness", "water_level", "pressure", "air_pressure"):
             if name in ds:
                 anc = ds[name].attrs["ancillary_variables"].split()
                 assert f"{name}_qc" in anc and all(a in ds for a in anc)
@@ -288,8 +281,12 @@ def test_raw_copies_match_their_hashes(demo_run):
 # --- the tide: immersion, clock error, gating, products ----------------------------------
 
 def test_every_dataset_carries_immersion_state(demo_run):
+    # (a barometer measures air pressure: immersion does not apply to it)
     for path in datasets(demo_run).values():
         ds = open_nc(path)
+        if "air_pressure" in ds:
+            assert "immersion" not in ds
+            continue
         assert "immersion" in ds and ds["immersion"].dtype == np.int8
         assert ds["immersion"].attrs["flag_meanings"] == "emersed immersed unknown"
         assert set(np.unique(ds["immersion"].values)) <= {0, 1, 2}
@@ -349,19 +346,14 @@ def derived_files(run, pattern):
 
 
 def test_derived_products_written_and_cf_clean(demo_run, cf_tables):
-    from cfchecker.cfchecks import CFChecker
+    from tests.conftest import cf_check
 
     names = [p.name for p in derived_files(demo_run, "*")]
     for product in ("_tide_events.nc", "_tide_events.csv", "_datums.csv", "_constituents.toml",
                     "_emersion_periods.nc", "_emersion_periods.csv", "_daily_exposure.nc", "_daily_exposure.csv"):
         assert any(n.endswith(product) for n in names), product
     for path in derived_files(demo_run, "*.nc"):
-        checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
-                            cfAreaTypesXML=str(cf_tables["area_types"]),
-                            cfRegionNamesXML=str(cf_tables["regions"]), version="1.8", silent=True)
-        checker.checker(str(path))
-        totals = checker.get_total_counts()
-        assert totals["FATAL"] == 0 and totals["ERROR"] == 0 and totals["WARN"] == 0, (path.name, checker.all_messages)
+        cf_check(path, cf_tables)
 
 
 def test_gauge_fit_recovers_the_site_constants(demo_run):
@@ -400,3 +392,72 @@ def test_run_writes_a_report_and_says_where(demo_run):
     html = index.read_text()
     assert "Needs attention" in html and "kc-mid" in html
     assert "report: " not in demo_run.second.stdout          # nothing new, no report
+
+
+# --- the barometric correction (issue 14, section 3) ------------------------------------
+
+def test_barometer_spike_fails_and_is_not_subtracted(demo_run):
+    (f,) = faults(demo_run, "barometer_spike")
+    baro = dataset_of(demo_run, f["deployment"])
+    i = at(baro, f["time_utc"])
+    assert baro["air_pressure"].values[i] == pytest.approx(f["value"] * 100.0)      # hPa in the file, Pa stored
+    assert baro["air_pressure_qc_spike"].values[i] == 4 and baro["air_pressure_qc"].values[i] == 4
+    level = dataset_of(demo_run, demo_run.injected["barometer_fallback"]["deployment"])
+    j = at(level, f["time_utc"])
+    # the level logger interpolates across the failed sample from the samples 30 min either side
+    # (straight line: their mean at the midpoint), and does not fall back
+    expected = (baro["air_pressure"].values[i - 1] + baro["air_pressure"].values[i + 1]) / 2.0
+    assert level["air_pressure_subtracted"].values[j] == pytest.approx(expected, abs=1e-6)
+    assert level["air_pressure_source"].values[j] == 1
+    assert level["water_level_qc_barometer_fallback"].values[j] == 1
+
+
+def test_level_falls_back_to_the_constant_exactly_where_the_answer_key_says(demo_run):
+    fb = demo_run.injected["barometer_fallback"]
+    ds = dataset_of(demo_run, fb["deployment"])
+    t = ds["time"].values
+    flags = ds["water_level_qc_barometer_fallback"].values
+
+    def utc(iso):
+        return np.datetime64(iso.rstrip("Z"), "ns")
+
+    expected = ((t <= utc(fb["before_first_barometer_sample"]["last_utc"]))
+                | (t >= utc(fb["after_last_barometer_sample"]["first_utc"]))
+                | ((t > utc(fb["in_barometer_gap"]["after_utc"])) & (t < utc(fb["in_barometer_gap"]["before_utc"]))))
+    assert int(expected.sum()) == fb["total"]
+    np.testing.assert_array_equal(flags, np.where(expected, 3, 1))
+    np.testing.assert_array_equal(ds["air_pressure_source"].values, np.where(expected, 2, 1))
+    assert np.all(ds["water_level_qc"].values[expected] >= 3)
+    # the register's constant, 1013.25 hPa, where it fell back
+    np.testing.assert_array_equal(ds["air_pressure_subtracted"].values[expected], 101325.0)
+    assert ds.attrs["water_level_air_pressure_from_constant"] == fb["total"]
+    assert "barometer_fallback" in ds["water_level"].attrs["ancillary_variables"]
+
+
+def test_barometric_correction_removes_the_passing_low(demo_run):
+    # The demo's sea follows the site's harmonic prediction (no inverse-barometer response,
+    # injected.json "not_faults"), so with the barometer subtracted the level stays near the
+    # prediction through the low, while the constant would put it off by about 1 cm per hPa:
+    # 100 Pa / (1025 kg m-3 * 9.81 m s-2) = 9.9 mm (hand-worked), i.e. over 0.25 m at the low.
+    low = demo_run.injected["passing_low"]
+    ds = dataset_of(demo_run, demo_run.injected["barometer_fallback"]["deployment"])
+    t = ds["time"].values
+    near = np.abs(t - np.datetime64(low["deepest_utc"].rstrip("Z"), "ns")) < np.timedelta64(3, "h")
+    residual = ds["water_level"].values[near] - ds["water_level_predicted"].values[near]
+    assert np.sqrt(np.mean(residual ** 2)) < 0.03                  # 12 mm sensor noise in the generator
+    on_constant = residual - (101325.0 - ds["air_pressure_subtracted"].values[near]) / (1025.0 * 9.81)
+    assert np.mean(on_constant) < -0.25
+    assert np.all(ds["water_level_qc_tide_residual"].values[near] == 1)
+
+
+def test_summary_and_report_show_the_barometric_correction(demo_run):
+    fb = demo_run.injected["barometer_fallback"]
+    out = demo_run.first.stdout
+    assert "barometric correction (air pressure subtracted for water level):" in out
+    line = next(ln for ln in out.splitlines() if ln.strip().startswith(f"kc-pier/{fb['deployment']}: barometer"))
+    assert f"{fb['barometer']} (v001)" in line and f"at {fb['total']} (flagged suspect" in line
+    index = Path(next(ln for ln in out.splitlines() if ln.startswith("report: ")).split(": ", 1)[1])
+    html = index.read_text()
+    assert "Barometric correction" in html and fb["barometer"] in html
+    page = (index.parent / "station-kc-pier.html").read_text()
+    assert "Barometric correction" in page and "samples on the constant" in page

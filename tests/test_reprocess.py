@@ -175,8 +175,14 @@ def test_rerun_command_reprocesses_dependents(work):
     assert r.returncode == 0, r.stderr
     after = versions(work)
     changed = {d for d in after if after[d] != before[d]}
-    # a new gauge record changes the reference level of every probe, and so every station
-    assert changed == set(after)
+    # a new gauge record changes the reference level of every probe, and so every station; the
+    # site's barometer is upstream of the gauge (the gauge subtracts its air pressure), not a dependent
+    assert changed == set(after) - {"kc-deck-baro-2026-09"}
+    r = run_cli("rerun", "--workspace", ws(work), "--deployment", "kc-deck-baro-2026-09", "-q")
+    assert r.returncode == 0, r.stderr
+    again = versions(work)
+    # a new barometer record changes the gauge's air pressure, and so everything the gauge feeds
+    assert {d for d in again if again[d] != after[d]} == set(after)
     r = run_cli("rerun", "--workspace", ws(work), "-q")
     assert "nothing new" in r.stdout
     r = run_cli("rerun", "--workspace", ws(work), "--deployment", "no-such")
@@ -186,7 +192,7 @@ def test_rerun_command_reprocesses_dependents(work):
 def test_audit_accounts_for_quarantine_and_detects_tampering(work):
     r = run_cli("audit", "--workspace", ws(work))
     assert r.returncode == 0, r.stdout + r.stderr
-    assert "16 archived, 2 quarantined" in r.stdout and "all accounted for" in r.stdout
+    assert "18 archived, 2 quarantined" in r.stdout and "all accounted for" in r.stdout
     copies = sorted((work / "demo_archive" / "raw").rglob("*.wet"))
     victim = copies[0]
     original = victim.read_bytes()

@@ -22,7 +22,13 @@ Physics, kept simple on purpose:
 * temperature loggers follow water temperature under water and air temperature
   plus sun heating in the air, through a first-order thermal lag;
 * the pH sonde reads about 8.0 under water and drifts in 6.5–7.5 when dry;
-* the pier gauge reads atmospheric pressure plus ``rho g (z - z_sensor)``, kPa absolute.
+* the pier gauge reads atmospheric pressure plus ``rho g (z - z_sensor)``, kPa absolute;
+* atmospheric pressure: a few slow weather systems plus a passing low of
+  ``LOW_DEPTH_HPA`` (Gaussian in time), read by a barometric logger on the pier
+  deck in hPa. The sea does not respond to the low here (no inverse-barometer
+  effect): the demo's sea follows the harmonic tide, so a water level that
+  subtracts the barometer's air pressure matches the prediction, and one that
+  subtracts the constant is off by about 1 cm per hPa.
 
 Each logger samples on a regular grid of its own clock:
 ``logger = utc + clock_offset + r (utc - clock_set)``, with ``r`` taken from the
@@ -101,13 +107,21 @@ LOGGERS = {
     "LVL-3306": dict(interval_s=360, launch="2026-09-14T06:00:00Z", dl1="2026-10-05T18:05:50Z",
                      back_h=47.0, stop="2026-10-26T13:12:00Z",
                      files=["LVL-3306_20261005.lvl", "LVL-3306_20261026_2.lvl"]),
+    "BAR-0107": dict(interval_s=1800, launch="2026-09-14T06:00:00Z", dl1="2026-10-05T18:12:30Z",
+                     back_h=48.0, stop="2026-10-26T13:15:00Z",
+                     files=["pier_air_20261005.air", "pier_air_20261026.air"]),
 }
+
+#: the passing low: depth (hPa), time of its deepest point (UTC) and its e-folding half-width (hours)
+LOW_DEPTH_HPA = 30.0
+LOW_CENTRE = "2026-10-18T06:00:00Z"
+LOW_SIGMA_H = 14.0
 
 #: clocks set differently from what the register says (logger clock minus UTC, hours)
 ACTUAL_OFFSET = {"WD-0417": 1.0}   # forgotten summer-time setting; register says +00:00
 
 #: sun heating of an emersed logger, degC at full sun (higher on the shore = more exposed)
-SUN_GAIN = {"kc-high": 7.0, "kc-mid": 6.0, "kc-low": 5.0, "kc-pier": 0.0}
+SUN_GAIN = {"kc-high": 7.0, "kc-mid": 6.0, "kc-low": 5.0, "kc-pier": 0.0, "kc-deck": 0.0}
 
 GRID_START = _t("2026-09-14T00:00:00Z")
 GRID_END = _t("2026-10-26T18:00:00Z")
@@ -211,7 +225,8 @@ class World:
         p = np.zeros(s.size)
         for period_d, amp in ((6.3, 7.0), (3.1, 4.0), (11.0, 5.0)):
             p += amp * np.sin(2 * np.pi * (s / 86400.0) / period_d + rng.uniform(0, 2 * np.pi))
-        self.atm_hpa = 1013.0 + p
+        low = LOW_DEPTH_HPA * np.exp(-0.5 * ((s - secs(_t(LOW_CENTRE))) / (LOW_SIGMA_H * 3600.0)) ** 2)
+        self.atm_hpa = 1013.0 + p - low
 
     def at(self, arr: np.ndarray, s: np.ndarray) -> np.ndarray:
         return np.interp(s, self.s, arr)
@@ -303,6 +318,9 @@ def make_values(world: World, lg: Logger, station: dict, rng: np.random.Generato
         dry_s = ~(tide(u) > elev) & on
         noise = np.where(dry_s, rng.normal(0.0, 0.05, u.size), rng.normal(0.0, 0.008, u.size))
         out["ph"] = ph_s + noise
+    if kind == "barometer":     # on the pier deck: air temperature in the shade, air pressure in hPa
+        out["temperature"] = world.at(world.air, u) + rng.normal(0.0, 0.05, u.size)
+        out["air_pressure"] = world.at(world.atm_hpa, u) + rng.normal(0.0, 0.04, u.size)
     if kind == "pressure":
         atm = world.at(world.atm_hpa, u) * 100.0
         depth = np.where(on, tide(u) + rng.normal(0.0, 0.012, u.size) - elev, 0.0)
@@ -351,6 +369,12 @@ def write_rows(lg: Logger, idx: np.ndarray, layout: dict, cols: dict, download: 
         for i in idx:
             lines.append(d.join([str(int(i) + 1), naive_text(lg.logger_s[i], fmt), cols["pressure"][i],
                                  cols["temperature"][i]]))
+    elif name == "airlog":
+        lines += [f"barometer serial {lg.serial}", f"sampling every {int(lg.interval // 60)} minutes",
+                  "pressure hPa (station level, not reduced to sea level); air temperature degC",
+                  d.join(["utc_stamp", "p_hpa", "t_air"])]
+        for i in idx:
+            lines.append(d.join([naive_text(lg.logger_s[i], fmt), cols["air_pressure"][i], cols["temperature"][i]]))
     else:
         raise ValueError(f"no writer for layout {name!r}")
     n_header = layout.get("header_lines", 0)
@@ -360,7 +384,7 @@ def write_rows(lg: Logger, idx: np.ndarray, layout: dict, cols: dict, download: 
 
 def format_columns(values: dict, layout: dict) -> dict:
     dec = layout.get("decimal", ".")
-    digits = {"probe_reading": 0, "temperature": 2, "ph": 2, "pressure": 3}
+    digits = {"probe_reading": 0, "temperature": 2, "ph": 2, "pressure": 3, "air_pressure": 1}
     return {k: [fmt_num(v, digits[k], dec) for v in arr] for k, arr in values.items()}
 
 
@@ -460,6 +484,19 @@ def main(argv=None) -> int:
                        start_utc=iso_z(lg.utc_s[i0]), end_utc=iso_z(lg.utc_s[i0 + n - 1]), n_samples=n,
                        value=15.0, flag=4, caught_by="gross_range"))
 
+    # --- a barometer spike (a door slammed in the pier hut): fails its own spike check, so the level
+    #     loggers interpolate across it from the samples either side
+    lg = loggers["BAR-0107"]
+    i = lg.index_near("2026-10-21T14:00:00Z")
+    v = values["BAR-0107"]["air_pressure"]
+    faults.append(dict(kind="barometer_spike", **base("BAR-0107"), variable="air_pressure",
+                       time_utc=iso_z(lg.utc_s[i]), value=round(float(v[i] + 6.0), 1),
+                       value_without_fault=round(float(v[i]), 1), flag=4, caught_by="spike",
+                       note="hPa; the water level is not affected: it interpolates between the barometer "
+                            "samples either side (30 min away each)"))
+    v[i] += 6.0
+    barometer_failed = {i}
+
     # --- format every value once; faults below edit the text of one file only
     cols = {s: format_columns(values[s], layouts[loggers[s].inst["layout"]]) for s in loggers}
 
@@ -473,17 +510,32 @@ def main(argv=None) -> int:
         files[serial] = [(lg.spec["files"][0], idx1), (lg.spec["files"][1], idx2)]
 
     # --- a gap: rows missing from one file (after the overlap, so the first file cannot fill it)
-    lg = loggers["WD-0423"]
-    g0, g1 = secs(_t("2026-10-14T02:02:30Z")), secs(_t("2026-10-14T05:27:30Z"))
-    name2, idx2 = files["WD-0423"][1]
-    keep = ~((lg.utc_s[idx2] > g0) & (lg.utc_s[idx2] < g1))
-    removed = idx2[~keep]
-    files["WD-0423"][1] = (name2, idx2[keep])
-    after = idx2[keep][np.searchsorted(lg.utc_s[idx2[keep]], g1)]
+    def cut_rows(serial: str, start: str, end: str):
+        """Drop the samples strictly between start and end (UTC) from the logger's second file."""
+        lg = loggers[serial]
+        g0, g1 = secs(_t(start)), secs(_t(end))
+        name2, idx2 = files[serial][1]
+        keep = ~((lg.utc_s[idx2] > g0) & (lg.utc_s[idx2] < g1))
+        files[serial][1] = (name2, idx2[keep])
+        removed = idx2[~keep]
+        return lg, name2, removed, (lg.utc_s[removed[0] - 1], lg.utc_s[removed[-1] + 1])
+
+    lg, name2, removed, (before, after) = cut_rows("WD-0423", "2026-10-14T02:02:30Z", "2026-10-14T05:27:30Z")
     faults.append(dict(kind="gap", **base("WD-0423"), variable="wetness",
-                       file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(lg.utc_s[removed[0] - 1]),
-                       first_after_utc=iso_z(lg.utc_s[after]), n_missing=int(removed.size),
+                       file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(before),
+                       first_after_utc=iso_z(after), n_missing=int(removed.size),
                        flag=3, caught_by="gap", note="flag 3 at the first sample after the gap"))
+
+    # --- a barometer gap: six hours missing from its second download (battery change), longer than
+    #     the level logger's barometer_max_gap, so the water levels in it use the constant
+    lg, name2, removed, baro_gap = cut_rows("BAR-0107", "2026-10-09T03:10:00Z", "2026-10-09T09:10:00Z")
+    faults.append(dict(kind="barometer_gap", **base("BAR-0107"), variable="air_pressure",
+                       file=f"{DOWNLOADS[1]}/{name2}", last_before_utc=iso_z(baro_gap[0]),
+                       first_after_utc=iso_z(baro_gap[1]), n_missing=int(removed.size), flag=3,
+                       caught_by="barometer_fallback",
+                       note="the level logger's water levels strictly between the two barometer samples "
+                            "around the gap use the configured constant and are flagged suspect "
+                            "(water_level_qc_barometer_fallback = 3); see barometer_fallback in the answer key"))
 
     # --- one conflicting value in one overlap (second download differs from the first)
     serial = "TL7-20931"
@@ -591,6 +643,27 @@ def main(argv=None) -> int:
                                       removed_post_deployment=int((ud > end).sum()))
         deployments.append(rec)
 
+    # --- where the level logger must fall back to the constant air pressure (its barometer_max_gap
+    #     is the default 2 h): outside the barometer's deployment and across the gap; the spike is
+    #     interpolated across
+    lvl, bar = loggers["LVL-3306"], loggers["BAR-0107"]
+    lvl_idx = np.unique(np.concatenate([f[1] for f in files["LVL-3306"]]))
+    lu = lvl.utc_s[lvl_idx]
+    lu = lu[(lu >= secs(lvl.dep["start"])) & (lu <= secs(lvl.dep["end"]))]
+    bar_idx = np.unique(np.concatenate([f[1] for f in files["BAR-0107"]]))
+    bar_idx = np.array([i for i in bar_idx if i not in barometer_failed])
+    bu = bar.utc_s[bar_idx]
+    bu = bu[(bu >= secs(bar.dep["start"])) & (bu <= secs(bar.dep["end"]))]
+    before, after = lu < bu[0], lu > bu[-1]
+    in_gap = (lu > baro_gap[0]) & (lu < baro_gap[1])
+    barometer_fallback = dict(
+        deployment=lvl.dep["id"], barometer=bar.dep["id"], max_gap_s=7200,
+        before_first_barometer_sample=dict(last_utc=iso_z(lu[before][-1]), n=int(before.sum())),
+        after_last_barometer_sample=dict(first_utc=iso_z(lu[after][0]), n=int(after.sum())),
+        in_barometer_gap=dict(after_utc=iso_z(baro_gap[0]), before_utc=iso_z(baro_gap[1]), n=int(in_gap.sum())),
+        total=int(before.sum() + after.sum() + in_gap.sum()),
+        note="water_level_qc_barometer_fallback is 3 at exactly these samples, 1 at the others")
+
     key = {
         "about": "Answer key of the qcpipe demo downloads (Kelpwhistle Cove, a fictional site). "
                  "Written by tools/make_demo_data.py; do not edit by hand.",
@@ -611,6 +684,8 @@ def main(argv=None) -> int:
         "downloads": [dict(folder=dl, files=file_records[dl]) for dl in DOWNLOADS],
         "deployments": deployments,
         "faults": faults,
+        "barometer_fallback": barometer_fallback,
+        "passing_low": dict(depth_hpa=LOW_DEPTH_HPA, deepest_utc=LOW_CENTRE, e_folding_half_width_h=LOW_SIGMA_H),
         "not_faults": [
             "pH readings of the low-shore sonde while emersed are dry-electrode nonsense "
             "(6.5-7.5) by design: the tide consistency check, not the gross range, should flag them",
@@ -618,8 +693,10 @@ def main(argv=None) -> int:
             "minutes after emersion (water film): real behaviour, not faults",
             "intertidal temperature jumps by up to ~7 degC within one sample when the flood reaches a "
             "sun-warmed logger",
-            "the pier gauge's pressure includes weather (about +-15 hPa) that the fixed air_pressure_hpa "
-            "in the register does not remove",
+            "air pressure varies with the weather (slow systems of about +-15 hPa and a passing low of "
+            f"{LOW_DEPTH_HPA:g} hPa); the pier gauge subtracts the barometer's series, so its water level "
+            "follows the tide; the sea itself does not respond to the low in this demo (no inverse-barometer "
+            "effect)",
         ],
     }
     (out / "injected.json").write_text(json.dumps(key, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")

@@ -33,6 +33,8 @@ VARIABLE_META = {
     "probe_reading": dict(long_name="raw reading of the capacitive immersion probe"),
     "wetness": dict(long_name="wetness index of the immersion probe (0 dry, 1 wet)", units="1",
                     valid_min=0.0, valid_max=1.0),
+    "air_pressure": dict(standard_name="air_pressure", long_name="air pressure at the barometer", units="Pa",
+                         valid_min=50000.0, valid_max=110000.0),
 }
 
 #: CF standard name and long-name words of each check's flag variable
@@ -48,6 +50,8 @@ CHECK_META = {
     "immersion_quality": ("quality_flag", "immersion probe health test (bimodality, clock, elevation)"),
     "immersion_gating": ("quality_flag", "immersion gating test (sensor in air or settling after immersion)"),
     "tide_residual": ("quality_flag", "tide residual test (observed minus predicted water level)"),
+    "barometer_fallback": ("quality_flag", "barometer fallback test (configured constant air pressure "
+                                           "subtracted where the site's barometer had no valid value)"),
     "manual": ("quality_flag", "manual review"),
     "aggregate": ("aggregate_quality_flag", "aggregate of all tests (manual review takes precedence)"),
 }
@@ -124,7 +128,7 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     notes = provenance.get("notes", {})
 
     for name, values in variables.items():
-        meta = dict(VARIABLE_META[name])
+        meta = dict(VARIABLE_META[name], **provenance.get("meta", {}).get(name, {}))
         if name == "probe_reading":
             meta["units"] = {"count": "1"}.get((raw_units or {}).get(name, "1"), (raw_units or {}).get(name, "1"))
         fl = flags.get(name, {})
@@ -218,3 +222,26 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     if "previous_version" in provenance:
         ds.attrs["previous_version_id"] = provenance["previous_version"]
     return ds, encoding
+
+
+def add_air_pressure(ds: xr.Dataset, encoding: dict, air_pressure_pa, source=None) -> None:
+    """The air pressure a level logger's water level subtracted at each sample, and where it came from.
+
+    ``air_pressure_pa`` (Pa, one per sample); ``source`` int8 per sample, 1 the
+    site's barometer (interpolated), 2 the configured constant, or None where
+    only the constant was configured (no barometer at the site).
+    """
+    coords = ds["water_level"].attrs.get("coordinates", "time")
+    chunk = encoding["water_level"]["chunksizes"]
+    ds["air_pressure_subtracted"] = xr.DataArray(np.asarray(air_pressure_pa, np.float64), dims=("time",), attrs=dict(
+        standard_name="air_pressure", units="Pa", coordinates=coords,
+        long_name="air pressure subtracted from the sensor's absolute pressure to give the water level"))
+    encoding["air_pressure_subtracted"] = dict(dtype="float64", _FillValue=np.float64(np.nan), zlib=True,
+                                               complevel=4, shuffle=True, chunksizes=chunk)
+    if source is None:
+        return
+    ds["air_pressure_source"] = xr.DataArray(np.asarray(source, np.int8), dims=("time",), attrs=dict(
+        long_name="source of the air pressure subtracted at each sample", coordinates=coords,
+        flag_values=np.array([1, 2], np.int8), flag_meanings="site_barometer configured_constant"))
+    encoding["air_pressure_source"] = dict(dtype="int8", _FillValue=None, zlib=True, complevel=4, chunksizes=chunk)
+    ds["air_pressure_subtracted"].attrs["ancillary_variables"] = "air_pressure_source"

@@ -16,6 +16,7 @@ from .flags import (
     aggregate_flags,
     worst_flag,
 )
+from .barometer import barometer_fallback_flags
 from .flatline import flat_line_flags
 from .gap import GAP_DTYPE, find_gaps, gap_flags
 from .range import climatology_flags, gross_range_flags
@@ -32,6 +33,7 @@ __all__ = [
     "PASS",
     "SUSPECT",
     "aggregate_flags",
+    "barometer_fallback_flags",
     "climatology_flags",
     "find_gaps",
     "flat_line_flags",

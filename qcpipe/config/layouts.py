@@ -70,6 +70,7 @@ VARIABLES_BY_KIND = {
     "ph": {"ph", "ph_mv", "temperature"},
     "conductivity": {"conductivity", "temperature"},
     "pressure": {"pressure", "temperature"},
+    "barometer": {"air_pressure", "temperature"},
 }
 KNOWN_VARIABLES = set().union(*VARIABLES_BY_KIND.values())
 #: the unit each raw variable is stored in (its raw unit must convert to it); None: any reading

@@ -10,13 +10,19 @@ File format (TOML, our own)::
     [[station]]
     id, site, name, latitude, longitude, elevation_m   # sensing point above the site's datum
     [[instrument]]
-    serial, kind, layout               # kind: immersion_probe | temperature | ph | conductivity | pressure
+    serial, kind, layout               # kind: immersion_probe | temperature | ph | conductivity | pressure | barometer
     [[deployment]]
     id, station, instrument, start, end, clock_offset   # start/end UTC; clock_offset "+01:00"
     clock_check = { logger_time = 2026-10-20T11:02:10, reference_time = 2026-10-20T10:00:00Z }
     probe_reference = { air = 410.0, water = 1180.0 }   # immersion probes only
     ph_calibration = { buffers = [[7.0, -3.2, 20.0], [4.01, 168.5, 20.0]] }  # sondes logging millivolts
     pressure = { air_pressure_hpa = 1013.25, salinity = 34.0 }  # pressure loggers only
+    # air pressure: the site's barometers (kind "barometer", deployed at any station of
+    # the same site) where they have a valid value, else air_pressure_hpa;
+    # use_barometer = false always subtracts the constant; barometer_max_gap is the
+    # longest step between barometer samples interpolated across ("2 h" by default);
+    # vented = true: the logger measures gauge pressure, nothing is subtracted
+    pressure = { vented = true, salinity = 34.0 }
 """
 
 from __future__ import annotations
@@ -29,9 +35,10 @@ from typing import Literal
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from ..errors import ConfigError
+from ..units import seconds_from_duration
 from .loading import check_safe_id, content_sha256, read_toml, validate
 
-InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure"]
+InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure", "barometer"]
 
 _OFFSET_RE = re.compile(r"^([+-])(\d{2}):(\d{2})$")
 #: years a deployment's times may lie in (UTC): far inside what datetime64[ns] can hold
@@ -150,8 +157,37 @@ class PhCalibration(_Strict):
 
 
 class PressureSettings(_Strict):
-    air_pressure_hpa: float = Field(1013.25, gt=500, lt=1100)
+    """How a pressure logger's readings become water level (the deployment's ``pressure`` table)."""
+    air_pressure_hpa: float = Field(1013.25, gt=500, lt=1100, description="air pressure subtracted where no "
+                                    "barometer value is used (hPa)")
     salinity: float = Field(35.0, ge=0, le=42, description="practical salinity used for density")
+    vented: bool = Field(False, description="the logger measures gauge pressure (air already subtracted)")
+    use_barometer: bool = Field(True, description="subtract the site's barometer series where it has a valid value")
+    barometer_max_gap: float = Field(7200.0, description="longest step between barometer samples that is "
+                                     "interpolated across, seconds (text such as '2 h' in the file)")
+
+    @field_validator("barometer_max_gap", mode="before")
+    @classmethod
+    def _gap(cls, v):
+        if isinstance(v, float) and v > 0:            # the default
+            return v
+        if not isinstance(v, str):
+            raise ValueError(f"barometer_max_gap is a duration as text, e.g. '2 h', got {v!r}")
+        s = seconds_from_duration(v)
+        if not 0 < s < float("inf"):
+            raise ValueError(f"barometer_max_gap {v!r} must be longer than zero")
+        return s
+
+    @model_validator(mode="after")
+    def _vented(self):
+        if self.vented and {"air_pressure_hpa", "use_barometer", "barometer_max_gap"} & self.model_fields_set:
+            raise ValueError("a vented logger has the air pressure already subtracted; remove air_pressure_hpa, "
+                             "use_barometer and barometer_max_gap, or set vented = false")
+        return self
+
+    @property
+    def uses_barometer(self) -> bool:
+        return self.use_barometer and not self.vented
 
 
 class Deployment(_Strict):
@@ -244,6 +280,9 @@ class Register(_Strict):
                 raise ValueError(f"deployment {d.id!r} names instrument {d.instrument!r}, which is not in [[instrument]]")
             if d.probe_reference is not None and kinds[d.instrument] != "immersion_probe":
                 raise ValueError(f"deployment {d.id!r}: probe_reference is only for immersion probes")
+            if d.pressure is not None and kinds[d.instrument] != "pressure":
+                raise ValueError(f"deployment {d.id!r}: the pressure table is only for pressure loggers "
+                                 f"(instrument {d.instrument!r} is a {kinds[d.instrument]}); remove it")
         by_inst: dict[str, list[Deployment]] = {}
         for d in self.deployment:
             by_inst.setdefault(d.instrument, []).append(d)

@@ -40,6 +40,7 @@ VARIABLE_UNITS = {
     "pressure": "Pa",
     "water_level": "m",
     "wetness": "1",
+    "air_pressure": "Pa",
 }
 #: rule-set keys that are not per-variable (hashed with every variable's rules)
 GLOBAL_KEYS = ("immersion", "tide_timing")

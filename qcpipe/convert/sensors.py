@@ -67,10 +67,52 @@ def water_level_from_pressure(pressure_pa, *, air_pressure_pa, density, gravity,
     seawater density in kg m-3, ``g`` in m s-2 and ``z_sensor`` the surveyed
     elevation of the pressure port above the datum in m.  Where the logger
     is out of water (``p <= p_air``) the level is at or below the sensor; it
-    is returned as computed and left to the checks.
+    is returned as computed and left to the checks.  ``air_pressure_pa`` may
+    be a scalar or one value per sample; a vented (gauge-pressure) logger
+    has the air already subtracted: pass ``air_pressure_pa=0``.
     """
     p = np.asarray(pressure_pa, dtype=np.float64)
     return sensor_elevation_m + (p - air_pressure_pa) / (np.asarray(density) * gravity)
+
+
+def air_pressure_at(times, barometer_times, barometer_pa, *, max_gap_s: float) -> np.ndarray:
+    """A barometer's air pressure at ``times`` (Pa), NaN where it has no value.
+
+    Linear interpolation between the barometer samples either side of a time,
+    ``p(t) = p0 + (p1 - p0) (t - t0) / (t1 - t0)``, where ``t1 - t0 <= max_gap_s``;
+    a time equal to a barometer sample takes that sample's value.  NaN where the
+    two samples around a time are more than ``max_gap_s`` apart, and before the
+    first or after the last barometer sample (no extrapolation).  Barometer
+    samples that are NaN are left out first (their absence is a gap); of
+    samples with the same time the first is kept.  ``times`` and
+    ``barometer_times`` are datetime64 (or int64 ns), ``barometer_pa`` in Pa,
+    ``max_gap_s`` in seconds (finite, > 0).  Common practice, no source.
+    """
+    if not np.isfinite(max_gap_s) or max_gap_s <= 0:
+        raise ValueError(f"air_pressure_at: max_gap_s must be a finite number of seconds above 0, got {max_gap_s!r}")
+    t = np.asarray(times, dtype="datetime64[ns]").astype(np.int64)
+    bt = np.asarray(barometer_times, dtype="datetime64[ns]").astype(np.int64)
+    bp = np.asarray(barometer_pa, dtype=np.float64)
+    if bt.shape != bp.shape:
+        raise ValueError(f"air_pressure_at: barometer_times {bt.shape} and barometer_pa {bp.shape} differ in shape")
+    ok = np.isfinite(bp)
+    bt, bp = bt[ok], bp[ok]
+    order = np.argsort(bt, kind="stable")
+    bt, first = np.unique(bt[order], return_index=True)
+    bp = bp[order][first]
+    out = np.full(t.shape, np.nan)
+    if bt.size == 0 or t.size == 0:
+        return out
+    i = np.searchsorted(bt, t, side="right")          # bt[i-1] <= t < bt[i]
+    exact = (i > 0) & (bt[np.clip(i - 1, 0, None)] == t)
+    out[exact] = bp[i[exact] - 1]
+    inside = (i > 0) & (i < bt.size) & ~exact
+    j = i[inside]
+    t0, t1 = bt[j - 1], bt[j]
+    close = (t1 - t0) <= np.int64(round(max_gap_s * 1e9))
+    frac = (t[inside] - t0) / (t1 - t0).astype(np.float64)
+    out[np.flatnonzero(inside)[close]] = (bp[j - 1] + (bp[j] - bp[j - 1]) * frac)[close]
+    return out
 
 
 def nernst_slope_mv(temperature_c) -> np.ndarray:

@@ -43,6 +43,13 @@ def summary_markdown(run: dict) -> str:
                              f"| {_cell(var)} | " + " | ".join(str(int(per.get(k, 0))) for k in _FLAG_KEYS) + " |")
     else:
         lines.append("nothing new: no dataset written")
+    baro = [r for r in results if (r.get("air_pressure") or {}).get("from_barometer") is not None]
+    if baro:
+        lines += ["", "## Barometric correction", ""]
+        lines += [f"* {_cell(r['station'])}/{_cell(r['deployment'])}: barometer "
+                  f"{_cell(r['air_pressure'].get('barometer') or '(no data yet)')} at "
+                  f"{int(r['air_pressure']['from_barometer'])} samples, configured constant at "
+                  f"{int(r['air_pressure']['from_constant'])} (flagged suspect)" for r in baro]
     notices = [n for r in results for n in r.get("notices", [])] + list(run.get("notices", []))
     if notices:
         lines += ["", "## Needs attention", ""] + [f"* {_cell(n)}" for n in notices]

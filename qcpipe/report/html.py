@@ -35,6 +35,9 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
           "counts": {"duplicates": 0, "conflicts": 0, "pre_deployment": 0, "post_recovery": 0},
           "notices": ["kc-mid/kc-mid-probe-2026-09: probe clock about +60 min off ..."],
           "products": ["/abs/path/derived/..."],
+          "air_pressure": {"source": "...", "sensor": "absolute", "barometer": "kc-baro-2026-09 (v001)",
+                           "from_barometer": 9980, "from_constant": 60, "constant_hpa": 1013.25},
+                                            # (optional) level loggers: the air pressure subtracted
       }],
       "notices": ["run-level notices"],     # (optional)
       "kind": "nightly",                    # (optional) catalog runs.kind: nightly, rerun
@@ -113,7 +116,8 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "version": int(r.version), "samples": int(r.samples),
             "flag_counts": {str(v): {str(k): int(n) for k, n in per.items()} for v, per in r.flag_counts.items()},
             "counts": {str(k): int(n) for k, n in r.counts.items()},
-            "notices": [str(n) for n in r.notices], "products": [str(p) for p in r.products]})
+            "notices": [str(n) for n in r.notices], "products": [str(p) for p in r.products],
+            "air_pressure": json.loads(json.dumps(getattr(r, "air_pressure", {}) or {}))})
     return {"run_id": None if run_id is None else int(run_id), "started": started, "ended": ended,
             "outcome": outcome, "files_seen": int(summary.files_seen), "files_known": int(summary.files_known),
             "ingested": int(summary.ingested),
@@ -531,6 +535,9 @@ def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
     if conflict_rows:
         out.append("<h3>Downloads that disagree</h3>")
         out.append(_table(["Station", "Deployment", "timestamps", "list"], conflict_rows, numeric={2}))
+    baro = _barometric_html(results)
+    if baro:
+        out.append(baro)
     if results:
         out.append("<h3>Flags by station and variable</h3>")
         out.append(_flag_key())
@@ -538,6 +545,28 @@ def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
     else:
         out.append("<p>Nothing new: no dataset was written in this run.</p>")
     return "\n".join(out)
+
+
+def _barometric_html(results: list[dict]) -> str:
+    """The air pressure each level dataset of the run subtracted: source, samples on the barometer and on the constant."""
+    rows = []
+    for r in results:
+        a = r.get("air_pressure") or {}
+        if not a:
+            continue
+        if "from_barometer" in a:
+            what = f"barometer {a.get('barometer') or '(no data yet)'}; else {_fmt(a.get('constant_hpa'), 2, ' hPa')}"
+            rows.append([e(r["station"]), e(r["deployment"]), e(what), _n(a["from_barometer"]), _n(a["from_constant"])])
+        else:
+            rows.append([e(r["station"]), e(r["deployment"]), e(a.get("source", "")), "", ""])
+    if not rows:
+        return ""
+    return ("<h3 id=\"barometric-correction\">Barometric correction</h3>"
+            "<p>The air pressure subtracted from each level logger's pressure. Where the site's barometer had no "
+            "valid value (missing, failed its QC, a gap longer than allowed, outside its record) the configured "
+            "constant was used and those water levels are flagged suspect (check <code>barometer_fallback</code>).</p>"
+            + _table(["Station", "Deployment", "Air pressure from", "samples on the barometer",
+                      "samples on the constant (suspect)"], rows, numeric={3, 4}))
 
 
 def _diff_html(diff: list[dict]) -> str:
@@ -576,6 +605,8 @@ def _qc_variables(ds) -> list[str]:
 def _display_values(ds, var: str) -> tuple[np.ndarray, str]:
     units = str(ds[var].attrs.get("units", ""))
     values = ds[var].values.astype(np.float64)
+    if units == "Pa" and var.startswith("air_pressure"):  # air pressure in the unit of weather maps
+        return values / 100.0, "hPa"
     if units == "Pa":                                    # readable numbers on the axis
         return values / 1000.0, "kPa"
     return values, "" if units == "1" else units
@@ -601,6 +632,30 @@ def _fmt(x, nd=1, unit="") -> str:
     except (TypeError, ValueError):
         return e(x)
     return "not recorded" if not np.isfinite(f) else f"{f:.{nd}f}{unit}"
+
+
+def _air_pressure_section(station: str, deployment: str, ds, attrs: dict) -> str:
+    """A level logger's barometric correction: where its air pressure came from, and a plot of it."""
+    if "water_level_air_pressure_source" not in attrs:
+        return ""
+    facts = [["pressure sensor", e(attrs.get("pressure_sensor", ""))],
+             ["air pressure subtracted", e(attrs["water_level_air_pressure_source"])]]
+    if "water_level_air_pressure_from_barometer" in attrs:
+        facts += [["samples on the barometer", _n(attrs["water_level_air_pressure_from_barometer"])],
+                  ["samples on the constant (flagged suspect)", _n(attrs["water_level_air_pressure_from_constant"])]]
+    if attrs.get("water_level_air_pressure_constant_ranges"):
+        facts.append(["on the constant (UTC)", e(attrs["water_level_air_pressure_constant_ranges"])])
+    out = "<h3>Barometric correction</h3>" + _facts(facts)
+    if "air_pressure_subtracted" in ds.data_vars and "air_pressure_source" in ds.data_vars:
+        src = ds["air_pressure_source"].values
+        marks = np.where(src == 2, 3, 1).astype(np.int8)
+        values, units = _display_values(ds, "air_pressure_subtracted")
+        fig = plots.plot_variable(ds["time"].values, values, marks, name="air pressure subtracted", units=units,
+                                  title=f"{station} {deployment}: air pressure subtracted")
+        out += _img(fig, f"air pressure subtracted at {station}",
+                    "Air pressure subtracted for the water level: circles (pass) from the site's barometer, "
+                    "triangles (suspect) the configured constant where the barometer had no valid value.")
+    return out
 
 
 def _clock_section(ds, attrs: dict) -> str:
@@ -774,9 +829,13 @@ def _station_html(station: str, archive: _Archive, run: dict, out_dir: Path) -> 
             if sec:
                 body.append(sec)
                 water_done = True
+        body.append(_air_pressure_section(station, row["deployment"], ds, attrs))
         body.append(_clock_section(ds, attrs))
         body.append(_exposure_section(archive, station, stem))
         body.append(_tide_section(archive, station, stem))
+    if not water_done:
+        body.append("<p class=\"muted\">Tide values in qcpipe's reports are for data quality control only, "
+                    "not for navigation or safety planning.</p>")
     stems = {Path(r["local_path"]).stem for r in rows}
     files = archive.derived_files(station, stems)
     if files:

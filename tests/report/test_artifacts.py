@@ -42,6 +42,21 @@ def test_markdown_cells_cannot_break_the_table():
     assert "a\\|b.csv: x y" in md and "nothing new" in md
 
 
+
+def test_markdown_says_where_the_air_pressure_came_from():
+    baro = {"source": "site barometer ...", "sensor": "absolute", "barometer": "b-1 (v002)",
+            "from_barometer": 990, "from_constant": 10, "constant_hpa": 1013.25}
+    run = {"run_id": 4, "files_seen": 2, "ingested": 2, "quarantined": [], "results": [
+        {"station": "pier", "deployment": "lvl", "version": 1, "samples": 1000,
+         "flag_counts": {"water_level": {"1": 990, "3": 10}}, "air_pressure": baro},
+        {"station": "quay", "deployment": "vented", "version": 1, "samples": 5,
+         "flag_counts": {"water_level": {"1": 5}}, "air_pressure": {"source": "none: vented logger"}}]}
+    md = summary_markdown(run)
+    assert "## Barometric correction" in md
+    assert "* pier/lvl: barometer b-1 (v002) at 990 samples, configured constant at 10 (flagged suspect)" in md
+    assert "quay/vented: barometer" not in md
+
+
 FLOW = r"""
 import json, sys
 from qcpipe.flows.prefect_settings import configure_prefect
