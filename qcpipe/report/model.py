@@ -1,0 +1,78 @@
+"""The run model: what a run did, as typed records that every rendering reads.
+
+The terminal summary, the HTML report and the orchestrator's artifacts are all rendered
+from these records; nothing sorts sentences by their words.  A :class:`Notice` carries its
+kind (what a person should look at) beside its sentence, so a report groups it without
+reading it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+#: kinds of notices, and the words a report heads them with
+NOTICE_KINDS = {
+    "clock": "Clock looks wrong",
+    "fouling": "Probe readings",
+    "elevation": "Sensor height",
+    "quarantine": "File quarantined",
+    "conflict": "Downloads disagree",
+    "failures": "Failed samples",
+    "reading": "Raw file reading",
+    "barometer": "Air pressure",
+    "rerun": "Re-read",
+    "run": "Run",
+}
+
+
+@dataclass(frozen=True)
+class Notice:
+    """Something a person should look at: its kind (a key of :data:`NOTICE_KINDS`), where, and the sentence."""
+    kind: str
+    text: str
+    station: str | None = None
+    deployment: str | None = None
+
+    def __post_init__(self):
+        if self.kind not in NOTICE_KINDS:
+            raise ValueError(f"unknown notice kind {self.kind!r}; use one of {', '.join(NOTICE_KINDS)}")
+
+    @property
+    def where(self) -> str:
+        """``station/deployment`` (or the deployment alone), empty for run-level notices."""
+        if self.station and self.deployment:
+            return f"{self.station}/{self.deployment}"
+        return self.deployment or self.station or ""
+
+    def line(self) -> str:
+        """One line: ``where: sentence``."""
+        return f"{self.where}: {self.text}" if self.where else self.text
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> Notice:
+        return cls(kind=str(d["kind"]), text=str(d["text"]), station=d.get("station"), deployment=d.get("deployment"))
+
+
+@dataclass
+class Quarantined:
+    """A raw file that could not be used, and why (one line)."""
+    name: str
+    reason: str
+
+
+@dataclass
+class DatasetWritten:
+    """One dataset version written by the run."""
+    station: str
+    deployment: str
+    dataset: str
+    version: int
+    samples: int
+    flag_counts: dict                                    # variable -> {aggregate flag "1".."9": count}
+    counts: dict = field(default_factory=dict)           # duplicates, conflicts, trimmed samples of the run
+    notices: list[Notice] = field(default_factory=list)
+    products: list = field(default_factory=list)         # derived files written beside the dataset
+    air_pressure: dict = field(default_factory=dict)     # level loggers: where the subtracted air pressure came from
