@@ -42,10 +42,12 @@ import json, sys, time
 from qcpipe.flows.prefect_settings import configure_prefect
 configure_prefect(sys.argv[2])
 from qcpipe.flows.nightly import nightly_flow_for
+from qcpipe.report.summary import summary_lines
 address = sys.argv[3] or None
 t = time.perf_counter()
 s = nightly_flow_for(address)(sys.argv[1], dask_address=address)
-print(json.dumps({"flow_s": time.perf_counter() - t, "datasets": len(s.results), "first": s.lines()[0]}))
+print(json.dumps({"flow_s": time.perf_counter() - t, "datasets": len(s.results), "first": summary_lines(s)[0]}))
+
 """
 
 

@@ -14,14 +14,16 @@ from __future__ import annotations
 from prefect import flow
 
 from qcpipe import pipeline
+from qcpipe.pipeline import run
+from qcpipe.report.model import RunSummary
 
 from .runners import flow_for, runs_on
-from .tasks import Job, close_run, report_run, refresh_inputs, run_plan
+from .tasks import TaskRunner
 
 
 @flow(name="qcpipe-rerun", log_prints=False)
 def rerun(workspace: str, deployments: list[str] | None = None,
-          dask_address: str | None = None) -> pipeline.RunSummary:
+          dask_address: str | None = None) -> RunSummary:
     """Re-QC what changed (or the given deployments) from the archive's stored data.
 
     ``dask_address``: run the tasks on the Dask cluster with this scheduler
@@ -38,21 +40,5 @@ def rerun_flow_for(dask_address: str | None = None):
     return flow_for(rerun, dask_address)
 
 
-def _rerun(workspace: str, deployments: list[str] | None) -> pipeline.RunSummary:
-    ctx = pipeline.load_context(workspace)
-    run_id = ctx.catalog.start_run("rerun")
-    summary = pipeline.RunSummary(archive=str(ctx.paths.root))
-    outcome = "failed"
-    try:
-        touched = refresh_inputs(ctx, summary)
-        if deployments:
-            pipeline.check_deployment_ids(ctx, deployments)
-            for d in deployments:
-                summary.reruns.setdefault(d, []).append("asked for")
-            touched |= set(deployments)
-        run_plan(ctx, pipeline.plan_qc(ctx, touched), {}, summary, run_id)
-        outcome = "nothing new" if summary.nothing_new else "completed"
-    finally:
-        close_run(ctx, run_id, outcome, summary)
-    report_run(Job.of(ctx), run_id, summary)
-    return summary
+def _rerun(workspace: str, deployments: list[str] | None) -> RunSummary:
+    return run.rerun(pipeline.load_context(workspace), TaskRunner(), deployments)

@@ -124,7 +124,9 @@ def _run_with_progress(args, fn, *a):
 
 
 def _print_summary(summary, quiet: bool) -> None:
-    lines = summary.lines()
+    from .report.summary import summary_lines
+
+    lines = summary_lines(summary)
     print("\n".join(lines[:1] if quiet else lines))
     if summary.report and not quiet:
         print(f"report: {summary.report}")

@@ -72,7 +72,7 @@ class ProbeAnalysis:
     threshold: float
     threshold_source: str
     bimodality: float
-    notices: list[str] = field(default_factory=list)
+    notices: list[tuple[str, str]] = field(default_factory=list)   # (kind, sentence): kinds of report.model.NOTICE_KINDS
     attrs: dict = field(default_factory=dict)
     clock: ClockVerdict | None = None
     elevation: ElevationCheck | None = None
@@ -82,7 +82,7 @@ class ProbeAnalysis:
 
 
 def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settings: ImmersionSettings,
-                  timing_rules: TideTiming, tide: SiteTide | None, label: str) -> ProbeAnalysis:
+                  timing_rules: TideTiming, tide: SiteTide | None) -> ProbeAnalysis:
     """Wet/dry state of an immersion probe from its own readings, checked against the tide.
 
     1. Threshold by Otsu's method on the deployment's readings; the class means
@@ -104,11 +104,11 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
     t = np.asarray(times, dtype="datetime64[ns]")
     r = np.asarray(reading, dtype=np.float64)
     ok = np.isfinite(r)
-    notices: list[str] = []
+    notices: list[tuple[str, str]] = []
     attrs: dict = {}
     quality = np.where(ok, PASS, MISSING).astype(np.int8)
     if np.count_nonzero(ok) < 10 or np.ptp(r[ok]) == 0:
-        notices.append(f"{label}: too few distinct probe readings to tell wet from dry; immersion unknown")
+        notices.append(("fouling", "too few distinct probe readings to tell wet from dry; immersion unknown"))
         state = np.full(r.size, 2, np.int8)
         quality[ok] = SUSPECT
         return ProbeAnalysis(state, np.full(r.size, np.nan), quality, float("nan"), "none", 0.0, notices, attrs)
@@ -120,8 +120,8 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
     source = "Otsu threshold of the deployment's readings"
     if score < settings.min_bimodality:
         quality[ok] = SUSPECT
-        notices.append(f"{label}: probe readings not clearly bimodal (separation {score:.2f} < "
-                       f"{settings.min_bimodality:.2f}): fouled, buried or failed probe? immersion flagged suspect")
+        notices.append(("fouling", f"probe readings not clearly bimodal (separation {score:.2f} < "
+                                   f"{settings.min_bimodality:.2f}): fouled, buried or failed probe? immersion flagged suspect"))
         if probe_reference is not None:
             thr = 0.5 * (probe_reference.air + probe_reference.water)
             source = "midpoint of the register's air/water references (readings not bimodal)"
@@ -130,9 +130,9 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
         dist = abs(probe_reference.water - probe_reference.air)
         attrs["immersion_reference_midpoint"] = mid
         if abs(thr - mid) > settings.reference_tolerance * dist:
-            notices.append(f"{label}: automatic wet/dry threshold {thr:.4g} differs from the air/water reference "
+            notices.append(("fouling", f"automatic wet/dry threshold {thr:.4g} differs from the air/water reference "
                            f"midpoint {mid:.4g} by more than {settings.reference_tolerance:.0%} of their distance; "
-                           "check the references or the probe")
+                           "check the references or the probe"))
     state = classify.classify_immersion(t, r, threshold=thr, hysteresis=settings.hysteresis_fraction * abs(hi - lo),
                                    min_state_s=settings.min_state, wet_is_high=wet_is_high)
     if probe_reference is not None:
@@ -154,7 +154,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
                      clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected),
                      clock_verdict=verdict.message)
         if verdict.suspected:
-            notices.append(f"{label}: {verdict.message}")
+            notices.append(("clock", verdict.message))
             quality[ok] = np.maximum(quality[ok], SUSPECT)
         shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
         obs = observed_transitions(t, state)
@@ -175,7 +175,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
             attrs.update(effective_elevation_m=_round(eff.median_m, 3), effective_elevation_spread_m=_round(eff.spread_m, 3),
                          effective_elevation_reference=ref_source)
             if check.suspect:
-                notices.append(f"{label}: {check.message}")
+                notices.append(("elevation", check.message))
                 quality[ok] = np.maximum(quality[ok], SUSPECT)
     return result
 

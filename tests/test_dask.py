@@ -37,7 +37,8 @@ from qcpipe.flows.nightly import nightly_flow_for
 address = sys.argv[3] or None
 t = time.perf_counter()
 summary = nightly_flow_for(address)(sys.argv[1], dask_address=address)
-print(json.dumps({"flow_s": round(time.perf_counter() - t, 2), "lines": summary.lines()}))
+from qcpipe.report.summary import summary_lines
+print(json.dumps({"flow_s": round(time.perf_counter() - t, 2), "lines": summary_lines(summary)}))
 """
 
 

@@ -310,6 +310,10 @@ class Register(_Strict):
     def deployments_of(self, serial: str) -> list[Deployment]:
         return [d for d in self.deployment if d.instrument == serial]
 
+    def kind_of(self, dep_id: str) -> str:
+        """The instrument kind of a deployment (``immersion_probe``, ``pressure``, ``barometer``, ...)."""
+        return self.instrument_by_serial(self.deployment_by_id(dep_id).instrument).kind
+
 
 class LoadedRegister:
     """A validated register with the path and content hash it came from."""

@@ -116,14 +116,14 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "version": int(r.version), "samples": int(r.samples),
             "flag_counts": {str(v): {str(k): int(n) for k, n in per.items()} for v, per in r.flag_counts.items()},
             "counts": {str(k): int(n) for k, n in r.counts.items()},
-            "notices": [str(n) for n in r.notices], "products": [str(p) for p in r.products],
+            "notices": [n.line() for n in r.notices], "products": [str(p) for p in r.products],
             "air_pressure": json.loads(json.dumps(getattr(r, "air_pressure", {}) or {}))})
     return {"run_id": None if run_id is None else int(run_id), "started": started, "ended": ended,
             "outcome": outcome, "files_seen": int(summary.files_seen), "files_known": int(summary.files_known),
             "ingested": int(summary.ingested),
-            "quarantined": [{"name": str(n), "reason": str(why)} for n, why in summary.quarantined],
+            "quarantined": [{"name": str(q.name), "reason": str(q.reason)} for q in summary.quarantined],
             "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox], "results": results,
-            "notices": [str(n) for n in getattr(summary, "notices", [])],
+            "notices": [n.line() for n in getattr(summary, "notices", [])],
             "reruns": {str(d): [str(w) for w in why] for d, why in getattr(summary, "reruns", {}).items()}}
 
 

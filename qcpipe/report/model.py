@@ -10,6 +10,9 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 
+#: aggregate flag codes as the run model counts them (text keys, as stored in the catalog)
+FLAG_CODES = ("1", "2", "3", "4", "9")
+
 #: kinds of notices, and the words a report heads them with
 NOTICE_KINDS = {
     "clock": "Clock looks wrong",
@@ -76,3 +79,41 @@ class DatasetWritten:
     notices: list[Notice] = field(default_factory=list)
     products: list = field(default_factory=list)         # derived files written beside the dataset
     air_pressure: dict = field(default_factory=dict)     # level loggers: where the subtracted air pressure came from
+
+
+@dataclass
+class RunSummary:
+    """What one run did: files, quarantines, datasets written, re-runs and notices."""
+    files_seen: int = 0
+    files_known: int = 0
+    repeated_in_inbox: list = field(default_factory=list)
+    ingested: int = 0
+    quarantined: list = field(default_factory=list)      # Quarantined
+    results: list = field(default_factory=list)          # DatasetWritten
+    archive: str = ""
+
+    reruns: dict = field(default_factory=dict)          # deployment -> why it was re-QC'd
+    notices: list = field(default_factory=list)          # run-level Notice records (not of one deployment)
+    report: str = ""                                     # path of the run's HTML report
+
+    @property
+    def nothing_new(self) -> bool:
+        return self.ingested == 0 and not self.quarantined and not self.results
+
+    def totals(self) -> dict[str, int]:
+        tot = {k: 0 for k in FLAG_CODES}
+        for r in self.results:
+            for per in r.flag_counts.values():
+                for k, v in per.items():
+                    tot[k] = tot.get(k, 0) + v
+        return tot
+
+    def as_counts(self) -> dict:
+        return {"files_seen": self.files_seen, "files_known": self.files_known, "ingested": self.ingested,
+                "quarantined": len(self.quarantined), "repeated_in_inbox": len(self.repeated_in_inbox),
+                "datasets_written": len(self.results), "samples": sum(r.samples for r in self.results),
+                "flags": self.totals()}
+
+    def all_notices(self) -> list[Notice]:
+        """Run-level notices, then each dataset's, in order."""
+        return list(self.notices) + [n for r in self.results for n in r.notices]

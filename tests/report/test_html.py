@@ -259,12 +259,13 @@ def test_run_from_summary_is_plain_json():
 
     from qcpipe.pipeline import DeploymentResult, RunSummary
     from qcpipe.report import run_from_summary
+    from qcpipe.report.model import Notice, Quarantined
 
     res = DeploymentResult("kc-low", "kc-low-temp-2026-09", Path("/a/x_v002.nc"), np.int64(2), np.int64(7),
                            {"temperature": {"1": np.int64(6), "4": np.int64(1)}}, {"conflicts": np.int64(0)},
-                           ["kc-low/kc-low-temp-2026-09: note"], [Path("/a/p.csv")])
+                           [Notice("clock", "note", "kc-low", "kc-low-temp-2026-09")], [Path("/a/p.csv")])
     s = RunSummary(files_seen=3, files_known=1, repeated_in_inbox=["b/x.csv"], ingested=2,
-                   quarantined=[("q.csv", "why")], results=[res], archive="/a")
+                   quarantined=[Quarantined("q.csv", "why")], results=[res], archive="/a")
     s.reruns = {"kc-low-temp-2026-09": ["rule set changed"]}
     run = run_from_summary(s, run_id=4, started="2026-12-01T02:00:00Z", ended="2026-12-01T02:01:00Z")
     back = json.loads(json.dumps(run))

@@ -27,8 +27,8 @@ from ..tide.analysis import fit_constituents
 from ..tide.datums import tidal_datums
 from ..tide.events import high_low_waters, tidal_day_classes
 from ..tide.exposure import daily_exposure, exposure_periods
-from .catalog import utc_now
-from .ncio import read_dataset, write_dataset_atomic
+from ..archive.catalog import utc_now
+from ..archive.ncio import read_dataset, write_dataset_atomic
 
 EVENT_CLASSES = ("HHW", "LHW", "HLW", "LLW")
 
@@ -147,7 +147,6 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
 
 def write_exposure_products(ctx, station) -> list[Path]:
     """Emersion periods and daily exposure of a station from its probe's and temperature logger's latest datasets."""
-    from ..pipeline import _kind
 
     site = ctx.register.site_by_id(station.site)
     probe = temp = None
@@ -157,7 +156,7 @@ def write_exposure_products(ctx, station) -> list[Path]:
         latest = ctx.catalog.latest_dataset(dep.id)
         if latest is None or not Path(latest["path"]).exists():
             continue
-        kind = _kind(ctx, dep.id)
+        kind = ctx.register.kind_of(dep.id)
         if kind == "immersion_probe" and probe is None:
             probe = (dep, latest)
         elif kind == "temperature" and temp is None:

@@ -1,0 +1,315 @@
+"""QC of one deployment from its pre-QC store into a new dataset version, in named steps."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .. import __version__, lineage, progress
+from ..archive.catalog import utc_now
+from ..archive.cf import add_air_pressure, build_cf_dataset
+from ..archive.ncio import read_attrs, write_dataset_atomic
+from ..checks import barometer_fallback_flags
+from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
+from ..derive import products as derived
+from ..files import copy_atomic, sha256_of_file
+from ..ingest import IngestedFile
+from ..qc import apply_rule_set, flag_counts
+from ..report.model import DatasetWritten, Notice
+from ..tidal import SiteTide, analyse_probe
+from .context import Context
+from .references import site_barometer, station_immersion
+from .store import COUNT_KEYS, Store, load_store, merge_new_files
+
+
+#: one dataset version written by a run (the run model's record)
+DeploymentResult = DatasetWritten
+
+
+@dataclass
+class Prepared:
+    """A deployment on its way to a dataset: its configuration, converted variables and what QC needs."""
+    dep: object
+    station: object
+    site: object
+    store: Store
+    conv: object                                   # convert.by_kind.Converted
+    qc_vars: dict                                  # variables that are QC'd
+    conflicts: dict                                # variable -> download-conflict mask
+    qc_args: dict = field(default_factory=dict)    # immersion, reference level, extra flags for apply_rule_set
+    tide_attrs: dict = field(default_factory=dict)
+    notices: list = field(default_factory=list)    # Notice records
+    analysis: object = None                        # tidal.ProbeAnalysis of an immersion probe
+    qc_key: str = ""                               # lineage: what this dataset is made from
+    qc_inputs: dict = field(default_factory=dict)
+
+
+def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedFile] = (),
+                  store: Store | None = None, tide=None, run_id: int | None = None) -> DeploymentResult:
+    """Convert, QC and write a new dataset version of one deployment from its pre-QC store.
+
+    ``new_files`` are the raw files merged in this run: their catalog rows are
+    committed together with the dataset's, after the dataset is written.
+    ``tide`` is the station's tide reference (:class:`qcpipe.tidal.SiteTide`), or None.
+    ``run_id``: the catalog run doing this; if that run already committed a
+    version of the deployment (a task tried again after a passing I/O error),
+    that version is returned and nothing is written twice.
+    """
+    done = _committed_by_run(ctx, deployment_id, run_id, new_files)
+    if done is not None:
+        return done
+    p = convert(ctx, deployment_id, store or load_store(ctx, deployment_id), new_files)
+    attach_immersion(ctx, p, tide)
+    flags, manual_notes = apply_rules(ctx, p)
+    version = _next_version(ctx, p.dep.id)
+    out_path = ctx.paths.dataset(p.station.id, p.dep.id, version)
+    now = utc_now()
+    ds, enc = build_dataset(ctx, p, flags, manual_notes, version, now)
+    write_dataset_atomic(ds, out_path, enc)
+    products = derived.write_products(ctx, p.station, p.site, p.dep, p.store.kind, p.store.time, p.conv, flags,
+                                      version, tide=tide) if p.store.kind == "pressure" else []
+    fc = flag_counts(flags)
+    commit(ctx, p, new_files, out_path, version, now, fc, run_id)
+    prune_versions(ctx, p.dep.id)
+    progress.step("qc", f"{p.station.id}/{p.dep.id} v{version:03d}")
+    return DeploymentResult(p.station.id, p.dep.id, out_path, version, int(p.store.time.size), fc,
+                            _run_counts(new_files, p.store.counts), p.notices, products,
+                            air_pressure_summary(p.conv.attrs))
+
+
+def convert(ctx: Context, deployment_id: str, store: Store, new_files) -> Prepared:
+    """Step 1: raw units to physical variables (with the site's barometer for a level logger)."""
+    reg = ctx.register
+    dep = reg.deployment_by_id(deployment_id)
+    station = reg.station_by_id(dep.station)
+    barometer = site_barometer(ctx, dep.id) if store.kind == "pressure" else None
+    conv = physical_from_raw(store.kind, store.values, store.units, deployment=dep, station=station,
+                             times=store.time, barometer=barometer)
+    conflicts = {k: store.conflict[k] for k in conv.variables if k in store.conflict}
+    for var_out, raw in (("wetness", "probe_reading"), ("water_level", "pressure"), ("ph", "ph_mv")):
+        if raw in store.conflict and var_out in conv.variables:
+            conflicts[var_out] = store.conflict[raw]
+    qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
+    notices = [Notice("reading", n, station.id, dep.id) for f in new_files for n in f.notes]
+    return Prepared(dep, station, reg.site_by_id(station.site), store, conv, qc_vars, conflicts, notices=notices,
+                    qc_key=lineage.qc_key(ctx, dep.id), qc_inputs=lineage.qc_inputs(ctx, dep.id))
+
+
+def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
+    """Step 2: the immersion state of every sample (a probe's own analysis, else its station's probe or the
+    water level) and what the tide checks compare with."""
+    store, station, conv = p.store, p.station, p.conv
+    if store.kind == "immersion_probe":
+        analysis = analyse_probe(store.time, store.values["probe_reading"], probe_reference=p.dep.probe_reference,
+                                 elevation_m=station.elevation_m, settings=ctx.rules.immersion,
+                                 timing_rules=ctx.rules.tide_timing, tide=tide)
+        conv.variables["wetness"] = p.qc_vars["wetness"] = analysis.wetness
+        conv.immersion = analysis.state
+        p.notices += [Notice(kind, text, station.id, p.dep.id) for kind, text in analysis.notices]
+        p.tide_attrs.update(analysis.attrs)
+        ref_level, ref_source = tide.reference(store.time) if tide is not None else (None, "none")
+        p.tide_attrs["immersion_reference_level"] = ref_source
+        p.analysis = analysis
+        p.qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
+                         readings=store.values["probe_reading"],
+                         extra={"wetness": {"immersion_quality": analysis.quality}})
+    elif store.kind == "barometer":
+        p.tide_attrs["immersion_source"] = "none (a barometer measures air pressure; immersion does not apply)"
+    else:
+        state, source = station_immersion(ctx, station, store.time, tide)
+        conv.immersion = state
+        p.tide_attrs["immersion_source"] = source
+        p.qc_args = dict(immersion=state)
+        if store.kind == "pressure" and tide is not None:
+            p.qc_args["predicted_level"] = tide.predicted(store.time)
+    if conv.barometer_used:
+        p.qc_args["extra"] = {"water_level": {"barometer_fallback": barometer_fallback_flags(
+            conv.variables["water_level"], conv.air_pressure_source == AIR_FROM_CONSTANT)}}
+
+
+def manual_ranges(ctx: Context, station_id: str, variables) -> tuple[dict, dict]:
+    """The review annotations of a station as flag ranges per variable, and their notes for the comment."""
+    ranges: dict[str, list] = {}
+    notes: dict[str, list[str]] = {}
+    for a in ctx.annotations.for_station(station_id):
+        for var in variables:
+            if a.applies_to(station_id, var):
+                d = a.as_dict()
+                ranges.setdefault(var, []).append((np.datetime64(d["start"].rstrip("Z"), "ns"),
+                                                   np.datetime64(d["end"].rstrip("Z"), "ns"), a.flag))
+                notes.setdefault(var, []).append(
+                    f"{d['start']} to {d['end']}: flag {a.flag} by {a.reviewer} on {d['date']}: {a.reason}")
+    return ranges, notes
+
+
+def apply_rules(ctx: Context, p: Prepared) -> tuple[dict, dict]:
+    """Step 3: the rule set's flags per variable and check (with the reviewers' manual flags)."""
+    manual, notes = manual_ranges(ctx, p.station.id, p.qc_vars)
+    flags = apply_rule_set(p.qc_vars, p.store.time, ctx.rules, p.station.id, p.conflicts, manual=manual,
+                           **p.qc_args)
+    if "tide_residual" in flags.get("water_level", {}):
+        res = p.conv.variables["water_level"] - p.qc_args["predicted_level"]
+        p.tide_attrs["tide_residual_rms_m"] = round(float(np.sqrt(np.nanmean(res ** 2))), 4)
+    p.conv.attrs.update(p.tide_attrs)
+    return flags, notes
+
+
+def _next_version(ctx: Context, deployment_id: str) -> int:
+    prev = ctx.catalog.latest_dataset(deployment_id)
+    return 1 if prev is None else prev["version"] + 1
+
+
+def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, version: int, now: str):
+    """Step 4: the CF/ACDD dataset with its history and provenance, and its NetCDF encoding."""
+    reg, dep, store, conv, counts = ctx.register, p.dep, p.store, p.conv, p.store.counts
+    cat = ctx.catalog
+    prev = cat.latest_dataset(dep.id)
+    history = (f"{now} qcpipe {__version__}: {len(store.sources)} raw file(s) merged ({counts.get('duplicates', 0)} "
+               f"repeated records dropped, {counts.get('conflicts', 0)} conflicts kept and flagged), converted, QC "
+               f"with rule set {ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
+    if prev is not None and Path(prev["path"]).exists():
+        history = f"{read_attrs(prev['path']).get('history', '')}\n{history}".strip()
+    provenance = dict(rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
+                      raw_files=list(zip(store.names, store.sources)), software_version=__version__,
+                      notes=conv.notes, meta=conv.meta,
+                      extra_attrs=dict(conv.attrs, clock_offset_declared=dep.clock_offset,
+                                       clock_drift_at_check_s=round(float(store.clock_drift_s), 3),
+                                       samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
+                                       samples_removed_post_recovery_total=counts.get("post_recovery", 0),
+                                       download_conflicts=counts.get("conflicts", 0),
+                                       raw_file_reading=json.dumps(store.file_provenance, sort_keys=True)))
+    provenance["extra_attrs"]["qc_inputs_sha256"] = p.qc_key
+    if prev is not None:
+        provenance["previous_version"] = Path(prev["path"]).stem
+    ds, enc = build_cf_dataset(time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion,
+                               station=p.station, site=p.site, deployment=dep, register_info=reg.info,
+                               provenance=provenance, version=version, history=history, raw_units=store.units)
+    if p.analysis is not None and p.analysis.transition_time is not None:
+        _add_transitions(ds, enc, p.analysis)
+    if conv.air_pressure is not None:
+        add_air_pressure(ds, enc, conv.air_pressure, conv.air_pressure_source)
+    for var, lines in manual_notes.items():
+        ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
+    first = cat.dataset_versions(dep.id)
+    if first and Path(first[0]["path"]).exists():
+        ds.attrs["date_created"] = read_attrs(first[0]["path"]).get("date_created", ds.attrs["date_created"])
+    if p.qc_args.get("predicted_level") is not None:
+        ds["water_level_predicted"] = xr.DataArray(p.qc_args["predicted_level"], dims=("time",), attrs=dict(
+            long_name=f"harmonic prediction of the water level above {p.site.vertical_datum}", units="m",
+            coordinates=ds["water_level"].attrs["coordinates"], comment="for the tide residual check; "
+            "not for navigation or safety planning"))
+        enc["water_level_predicted"] = dict(enc["water_level"])
+    return ds, enc
+
+
+def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, now: str, fc: dict,
+           run_id: int | None) -> None:
+    """Step 5: copy the run's new raw files into the archive and record them and the dataset in one transaction."""
+    reg, cat, station, dep, store = ctx.register, ctx.catalog, p.station, p.dep, p.store
+    with cat.transaction() as con:
+        for f in new_files:
+            dest = ctx.paths.raw_copy(station.id, dep.id, f.raw.sha256, f.raw.name)
+            if not dest.exists():
+                copy_atomic(f.raw.path, dest)
+            cat.record_raw(con, sha256=f.raw.sha256, size=f.raw.size, original_name=f.raw.name,
+                           original_path=str(f.raw.path), archived_path=str(dest), station=station.id,
+                           deployment=dep.id, layout=f.layout,
+                           time_start=str(f.time.min()) if f.time.size else None,
+                           time_end=str(f.time.max()) if f.time.size else None, status="archived", reason=None)
+        cat.record_dataset(con, path=str(out_path), station=station.id, deployment=dep.id, version=version,
+                           rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
+                           software_version=__version__, created=now, samples=int(store.time.size),
+                           flag_counts=fc, raw_sha256=store.sources, qc_key=p.qc_key,
+                           qc_inputs=p.qc_inputs, sha256=sha256_of_file(out_path), run_id=run_id)
+
+
+def _run_counts(new_files, store_counts: dict) -> dict:
+    """What this run's new files of a deployment add to the run's counts."""
+    run_counts = {k: sum(int(f.counts.get(k, 0)) for f in new_files) for k in COUNT_KEYS}
+    if new_files:      # repeats and conflicts are known per store, so they are reported with new data only
+        run_counts.update(duplicates=store_counts.get("duplicates", 0), conflicts=store_counts.get("conflicts", 0))
+    return run_counts
+
+
+def _committed_by_run(ctx: Context, deployment_id: str, run_id: int | None,
+                      new_files) -> DeploymentResult | None:
+    """The version ``run_id`` already committed for the deployment, as a result; None if it has not."""
+    if run_id is None:
+        return None
+    row = ctx.catalog.latest_dataset(deployment_id)
+    if row is None or row.get("run_id") != run_id:
+        return None
+    store_counts = load_store(ctx, deployment_id).counts if new_files else {}
+    return DeploymentResult(row["station"], deployment_id, Path(row["path"]), row["version"], row["samples"],
+                            row["flag_counts"], _run_counts(new_files, store_counts),
+                            [Notice("run", f"version {row['version']} was written by an earlier attempt of this run "
+                                    "(the task was tried again after an I/O error)", row["station"], deployment_id)])
+
+
+def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
+    """Delete dataset versions beyond the workspace's ``keep_versions`` (0 keeps all); the catalog keeps their rows."""
+    if ctx.keep_versions <= 0:
+        return []
+    cat = ctx.catalog
+    versions = [v for v in cat.dataset_versions(deployment_id) if not v["pruned"]]
+    removed = []
+    for v in versions[:-ctx.keep_versions]:
+        p = Path(v["path"])
+        if p.exists():
+            p.unlink()
+        cat.mark_pruned(v["path"])
+        removed.append(p)
+    return removed
+
+
+def _add_transitions(ds: xr.Dataset, enc: dict, a) -> None:
+    """Observed wet/dry transitions and their offsets from the prediction, on their own dimension."""
+    secs = a.transition_time.astype("datetime64[ns]").astype(np.int64) / 1e9
+    ds["transition_time"] = xr.DataArray(secs, dims=("transition",), attrs=dict(
+        long_name="time of an observed wet/dry transition of the probe (UTC)",
+        units="seconds since 1970-01-01T00:00:00Z", calendar="standard"))
+    ds["transition_kind"] = xr.DataArray(a.transition_kind, dims=("transition",), attrs=dict(
+        long_name="kind of transition", flag_values=np.array([0, 1], np.int8), flag_meanings="draining flooding"))
+    ds["transition_offset"] = xr.DataArray(a.transition_offset_s, dims=("transition",), attrs=dict(
+        long_name="observed minus predicted transition time (positive: logger clock ahead)", units="s"))
+    enc.update(transition_time={"_FillValue": None}, transition_kind={"_FillValue": None},
+               transition_offset={"_FillValue": np.float64(np.nan)})
+
+
+def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile], tide=None) -> DeploymentResult:
+    """Merge new files into the deployment's store, then QC it and write a new version."""
+    store = merge_new_files(ctx, deployment_id, files)
+    return qc_deployment(ctx, deployment_id, new_files=files, store=store, tide=tide)
+
+
+
+
+def air_pressure_summary(attrs: dict) -> dict:
+    """Where a level dataset's air pressure came from, from its attributes ({} for other kinds)."""
+    if "water_level_air_pressure_source" not in attrs:
+        return {}
+    out = {"source": str(attrs["water_level_air_pressure_source"]), "sensor": str(attrs.get("pressure_sensor", ""))}
+    if "water_level_air_pressure_from_barometer" in attrs:
+        out.update(barometer=str(attrs["water_level_air_pressure_barometer"]),
+                   from_barometer=int(attrs["water_level_air_pressure_from_barometer"]),
+                   from_constant=int(attrs["water_level_air_pressure_from_constant"]),
+                   constant_hpa=float(attrs["water_level_air_pressure_pa"]) / 100.0)
+    return out
+
+
+
+
+def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_files: dict[str, list],
+               tide: SiteTide | None, run_id: int | None = None) -> list[DeploymentResult]:
+    """QC the given deployments of one station in order (probe first), then its exposure products."""
+    results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide, run_id=run_id)
+               for d in deployment_ids]
+    station = ctx.register.station_by_id(station_id)
+    written = derived.write_exposure_products(ctx, station)
+    if written and results:
+        results[0].products.extend(written)
+    return results

@@ -1,0 +1,74 @@
+"""Planning a run: which deployments to QC, in dependency order, and which are stale."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+from .. import lineage, progress
+from ..errors import ConfigError
+from .context import Context
+
+
+@dataclass
+class QcPlan:
+    """Deployments to (re-)QC, in dependency order: barometers, gauges, then stations (probe first)."""
+    gauges: list[str]
+    stations: dict[str, list[str]]
+    sites: list[str]
+    barometers: list[str] = field(default_factory=list)
+
+
+def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
+    """Which deployments a run must QC, given those that received new data.
+
+    A new barometer record changes the air pressure of the level loggers at its
+    site; a new gauge record changes the reference level of every probe at its
+    site; a new probe record changes the immersion state of every instrument at
+    its station: their datasets are re-QC'd from the stored pre-QC level.
+    """
+    reg = ctx.register
+    have_store = {d.id for d in reg.deployment if ctx.paths.ingested(d.station, d.id).exists()} | set(touched)
+    todo = set(touched)
+    site_of = {d.id: reg.station_by_id(d.station).site for d in reg.deployment}
+    barometers = sorted(d for d in todo if ctx.register.kind_of(d) == "barometer")
+    todo |= {d for d in have_store if set(lineage.barometers_for(reg, d)) & set(barometers)}
+    new_gauge_sites = {site_of[d] for d in todo if ctx.register.kind_of(d) == "pressure"}
+    todo |= {d for d in have_store if ctx.register.kind_of(d) == "immersion_probe" and site_of[d] in new_gauge_sites}
+    new_probe_stations = {reg.deployment_by_id(d).station for d in todo if ctx.register.kind_of(d) == "immersion_probe"}
+    todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}
+    order = {"pressure": 0, "immersion_probe": 1}
+    gauges = sorted(d for d in todo if ctx.register.kind_of(d) == "pressure")
+    stations: dict[str, list[str]] = {}
+    for d in sorted(todo - set(gauges) - set(barometers), key=lambda d: (order.get(ctx.register.kind_of(d), 2), d)):
+        stations.setdefault(reg.deployment_by_id(d).station, []).append(d)
+    progress.expect("qc", len(todo))
+    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}), barometers)
+
+
+
+
+def check_deployment_ids(ctx: Context, ids) -> None:
+    """ConfigError naming the first id that is not a deployment with stored data."""
+    known = {d.id: d for d in ctx.register.deployment}
+    for d in ids:
+        if d not in known:
+            raise ConfigError(f"{ctx.register.path}: no deployment {d!r}; see 'qcpipe holdings' for the ids")
+        if not ctx.paths.ingested(known[d].station, d).exists():
+            raise ConfigError(f"deployment {d!r} has no stored data in {ctx.paths.root}; run 'qcpipe process' first")
+
+
+def stale_deployments(ctx: Context) -> dict[str, list[str]]:
+    """Deployments with a store whose latest dataset came from other inputs: {id: differences}."""
+    out: dict[str, list[str]] = {}
+    cat = ctx.catalog
+    for d in ctx.register.deployment:
+        if not ctx.paths.ingested(d.station, d.id).exists():
+            continue
+        latest = cat.latest_dataset(d.id)
+        if latest is None:
+            out[d.id] = ["no dataset yet"]
+        elif latest.get("qc_key") != lineage.qc_key(ctx, d.id):
+            out[d.id] = lineage.differences(latest.get("qc_inputs") or {}, lineage.qc_inputs(ctx, d.id)) or \
+                ["inputs changed"]
+    return out

@@ -1,0 +1,280 @@
+"""The run sequence, once, without the orchestrator: the nightly run and the re-run on a runner.
+
+A *runner* says where each unit of work runs: :class:`InProcess` calls it at once in this
+process (tests, scripts); the Prefect flows (``flows/``) pass a runner that submits each
+step as a retrying Prefect task, on threads or on Dask workers.  The steps
+(:data:`STEPS`) take a :class:`Job` (workspace path and configuration fingerprint), never
+the loaded context, so they pickle small and run in another process; each loads the
+context again and stops with a ConfigError if the configuration changed since planning.
+
+Order of work: read every new file (parallel), quarantine rejects; merge each
+deployment's new files into its store (parallel); rebuild stores whose ingest inputs
+changed and find deployments whose QC inputs changed; then QC in dependency order:
+barometers, water-level gauges (the site's reference level), then stations in parallel
+(each probe first); then the run's report.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sqlite3
+import sys
+from dataclasses import dataclass
+from typing import Protocol
+
+from ..errors import ConfigError
+from ..report.model import Notice, Quarantined, RunSummary
+from .context import Context, load_context
+from .deployment import qc_deployment, qc_station
+from .files import group_by_deployment, quarantine_file, read_one_file, find_new_files
+from .plan import QcPlan, check_deployment_ids, plan_qc, stale_deployments
+from .references import site_tide
+from .store import changed_ingest, merge_new_files, rebuild_store
+
+
+def context_fingerprint(ctx: Context) -> str:
+    """SHA-256 over the content hashes of everything a run was planned with."""
+    parts = {"workspace": str(ctx.workspace_path), "archive": str(ctx.paths.root), "inbox": str(ctx.inbox),
+             "register": ctx.register.sha256, "layouts": ctx.layouts.sha256, "rules": ctx.rules.sha256,
+             "annotations": [a.as_dict() for a in ctx.annotations.items], "keep_versions": ctx.keep_versions}
+    return hashlib.sha256(json.dumps(parts, sort_keys=True).encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class Job:
+    """What a step needs to rebuild its run's context: the workspace path and the configuration's fingerprint."""
+    workspace: str
+    fingerprint: str
+    run_id: int | None = None
+
+    @classmethod
+    def of(cls, ctx: Context, run_id: int | None = None) -> Job:
+        return cls(str(ctx.workspace_path), context_fingerprint(ctx), run_id)
+
+    def context(self) -> Context:
+        """The run's context, loaded again here (ConfigError if the configuration changed since planning)."""
+        ctx = load_context(self.workspace)
+        if context_fingerprint(ctx) != self.fingerprint:
+            raise ConfigError(f"{self.workspace}: the workspace's configuration (register, layouts, rules, "
+                              "annotations) changed while the run was going on; run it again")
+        return ctx
+
+
+# --- the steps: each is one unit of work a runner may run anywhere --------------------------
+
+def read_raw_file(job: Job, raw):
+    """Read, match and time-correct one raw file (rejections come back with a reason)."""
+    ctx = job.context()
+    return read_one_file(raw, ctx.register, ctx.layouts)
+
+
+def quarantine(job: Job, outcome) -> str:
+    """Copy a rejected file and its reason to quarantine."""
+    return str(quarantine_file(job.context(), outcome))
+
+
+def merge_deployment(job: Job, deployment_id, files) -> str:
+    """Merge a deployment's new files into its pre-QC store."""
+    merge_new_files(job.context(), deployment_id, files)
+    return deployment_id
+
+
+def reread_deployment(job: Job, deployment_id) -> list:
+    """Rebuild a deployment's pre-QC store from its archived raw files (register or layout changed)."""
+    return rebuild_store(job.context(), deployment_id)[1]
+
+
+def qc_gauge(job: Job, deployment_id, files, tide):
+    """QC a water-level gauge deployment and write its dataset and tide products."""
+    return qc_deployment(job.context(), deployment_id, new_files=files, tide=tide, run_id=job.run_id)
+
+
+def qc_barometer(job: Job, deployment_id, files):
+    """QC a barometer deployment (its air pressure is subtracted by the level loggers of its site)."""
+    return qc_deployment(job.context(), deployment_id, new_files=files, run_id=job.run_id)
+
+
+def qc_station_step(job: Job, station_id, deployment_ids, files, tide) -> list:
+    """QC one station's deployments (probe first) and write its exposure products."""
+    return qc_station(job.context(), station_id, deployment_ids, files, tide, run_id=job.run_id)
+
+
+def write_station_report(job: Job, run: dict, station: str) -> str:
+    """Write one station's page of the run report (its plots are most of the report's cost)."""
+    from ..report import write_station_pages
+
+    return str(write_station_pages(job.context().paths.root, run, [station])[0])
+
+
+def write_report(job: Job, run: dict) -> str:
+    """Write the run report's index into the archive and publish its orchestrator artifacts."""
+    from ..report import publish_artifacts, write_run_report
+
+    report = write_run_report(job.context().paths.root, run, station_pages=False)
+    publish_artifacts(run, report)
+    return str(report)
+
+
+#: every step by the name its orchestrator task carries
+STEPS = {
+    "read-raw-file": read_raw_file,
+    "quarantine-file": quarantine,
+    "merge-deployment": merge_deployment,
+    "reread-deployment": reread_deployment,
+    "qc-barometer": qc_barometer,
+    "qc-gauge": qc_gauge,
+    "qc-station": qc_station_step,
+    "write-station-report": write_station_report,
+    "write-run-report": write_report,
+}
+
+
+class Pending(Protocol):
+    def result(self): ...
+
+
+class Runner(Protocol):
+    """Where steps run: ``submit(step name, *args)`` returns something whose ``result()`` is the step's value."""
+    def submit(self, step: str, *args) -> Pending: ...
+
+
+@dataclass
+class Done:
+    value: object
+
+    def result(self):
+        return self.value
+
+
+class InProcess:
+    """Runs each step at once, in this process (no orchestrator, no retries)."""
+
+    def submit(self, step: str, *args) -> Done:
+        return Done(STEPS[step](*args))
+
+
+# --- the sequence --------------------------------------------------------------------------
+
+def nightly_run(ctx: Context, runner: Runner) -> RunSummary:
+    """Process everything new in the inbox once, and whatever changed configuration implies."""
+    run_id = ctx.catalog.start_run("nightly")
+    job = Job.of(ctx, run_id)
+    summary = RunSummary(archive=str(ctx.paths.root))
+    outcome = "failed"
+    try:
+        new, seen = find_new_files(ctx)
+        summary.files_seen, summary.files_known = seen["seen"], seen["known"]
+        summary.repeated_in_inbox = seen["repeated_in_inbox"]
+        outcomes = [p.result() for p in [runner.submit("read-raw-file", job, raw) for raw in new]]
+        for o in outcomes:
+            if o.ingested is None:
+                runner.submit("quarantine-file", job, o).result()
+                summary.quarantined.append(Quarantined(o.raw.name, o.reason))
+        by_dep = group_by_deployment([o.ingested for o in outcomes if o.ingested is not None])
+        for p in [runner.submit("merge-deployment", job, d, files) for d, files in by_dep.items()]:
+            p.result()
+        touched = set(by_dep) | refresh_inputs(ctx, runner, summary, exclude=set(by_dep))
+        run_plan(ctx, runner, plan_qc(ctx, touched), by_dep, summary, run_id)
+        summary.ingested = sum(len(files) for files in by_dep.values())
+        outcome = "nothing new" if summary.nothing_new else "completed"
+    finally:
+        close_run(ctx, run_id, outcome, summary)
+    report_run(ctx, runner, run_id, summary)
+    return summary
+
+
+def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None) -> RunSummary:
+    """Re-QC what changed (or the given deployments and their dependents) from the archive's stored data."""
+    run_id = ctx.catalog.start_run("rerun")
+    summary = RunSummary(archive=str(ctx.paths.root))
+    outcome = "failed"
+    try:
+        touched = refresh_inputs(ctx, runner, summary)
+        if deployments:
+            check_deployment_ids(ctx, deployments)
+            for d in deployments:
+                summary.reruns.setdefault(d, []).append("asked for")
+            touched |= set(deployments)
+        run_plan(ctx, runner, plan_qc(ctx, touched), {}, summary, run_id)
+        outcome = "nothing new" if summary.nothing_new else "completed"
+    finally:
+        close_run(ctx, run_id, outcome, summary)
+    report_run(ctx, runner, run_id, summary)
+    return summary
+
+
+def refresh_inputs(ctx: Context, runner: Runner, summary: RunSummary, exclude=()) -> set[str]:
+    """Rebuild stores whose ingest inputs changed and find deployments whose QC inputs changed."""
+    job = Job.of(ctx)
+    changed = changed_ingest(ctx)
+    for p in [runner.submit("reread-deployment", job, d) for d in changed]:
+        summary.notices.extend(p.result())
+    for d in changed:
+        summary.reruns.setdefault(d, []).append("register entry or logger layout changed: raw files read again")
+    stale = stale_deployments(ctx)
+    for d, why in stale.items():
+        if d not in exclude:
+            summary.reruns.setdefault(d, []).extend(why)
+    return set(changed) | set(stale)
+
+
+def run_plan(ctx: Context, runner: Runner, plan: QcPlan, by_dep: dict, summary: RunSummary,
+             run_id: int | None = None) -> None:
+    """QC the plan in dependency order: barometers, gauges, then stations in parallel."""
+    job = Job.of(ctx, run_id)
+    site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
+    for p in [runner.submit("qc-barometer", job, d, by_dep.get(d, [])) for d in plan.barometers]:
+        summary.results.append(p.result())
+    tides = {site: site_tide(ctx, site) for site in plan.sites}
+    for p in [runner.submit("qc-gauge", job, d, by_dep.get(d, []), tides[site_of[d]]) for d in plan.gauges]:
+        summary.results.append(p.result())
+    if plan.gauges:
+        tides = {site: site_tide(ctx, site) for site in plan.sites}   # with the new gauge record
+    pending = [runner.submit("qc-station", job, st, deps, {d: by_dep.get(d, []) for d in deps},
+                             tides[site_of[deps[0]]]) for st, deps in plan.stations.items()]
+    for p in pending:
+        summary.results.extend(p.result())
+
+
+def close_run(ctx: Context, run_id: int, outcome: str, summary: RunSummary) -> None:
+    """Record the run's end in the catalog.
+
+    Called from a ``finally``: when an error is already stopping the run (a full disk,
+    say), a failure to record the end (that same full disk) must not hide the first
+    error, so it is dropped; the run then stays without an end, like a killed run."""
+    stopping = sys.exc_info()[1] is not None
+    try:
+        ctx.catalog.end_run(run_id, outcome, summary.as_counts())
+    except (OSError, sqlite3.Error):
+        if not stopping:
+            raise
+
+
+def report_run_dict(ctx: Context, run_id: int, summary: RunSummary) -> dict:
+    """The run as the report shows it: the summary, the catalog's record of the run and what changed."""
+    from ..report import run_diff, run_from_summary
+
+    row = next(r for r in ctx.catalog.runs() if r["id"] == run_id)
+    run = run_from_summary(summary, run_id=run_id, started=row["started"], ended=row["ended"],
+                           outcome=row["outcome"])
+    run["kind"] = row.get("kind")
+    run["diff"] = run_diff(ctx.paths.root, run)
+    return run
+
+
+def report_run(ctx: Context, runner: Runner, run_id: int, summary: RunSummary) -> None:
+    """The report of a run that changed something, station pages in parallel on the runner;
+    a failure to write it is a notice, not a failed run (the data are already committed)."""
+    if summary.nothing_new:
+        return
+    from ..report import report_stations
+
+    try:
+        job = Job.of(ctx)
+        run = report_run_dict(ctx, run_id, summary)
+        for p in [runner.submit("write-station-report", job, run, st) for st in report_stations(ctx.paths.root)]:
+            p.result()
+        summary.report = runner.submit("write-run-report", job, run).result()
+    except Exception as err:  # noqa: BLE001 - the run's data are safe; say what went wrong
+        summary.notices.append(Notice("run", f"the run's report was not written: {type(err).__name__}: {err}"))

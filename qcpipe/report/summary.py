@@ -1,0 +1,58 @@
+"""The terminal summary of a run: the sentences a person reads after `qcpipe process`."""
+
+from __future__ import annotations
+
+from .model import RunSummary
+
+FLAG_WORDS = {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
+
+
+def air_pressure_words(a: dict) -> str:
+    """One line on a level dataset's air pressure (from :func:`air_pressure_summary`)."""
+    if "from_barometer" not in a:
+        return a["source"]
+    n = a["from_barometer"] + a["from_constant"]
+    return (f"barometer {a['barometer'] or '(no data yet)'} at {a['from_barometer']} of {n} samples; configured "
+            f"constant {a['constant_hpa']:.2f} hPa at {a['from_constant']} (flagged suspect by barometer_fallback)")
+
+
+def summary_lines(run: RunSummary) -> list[str]:
+    """The terminal summary of a run, one string per line."""
+    if run.nothing_new:
+        return [f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
+    out = [f"files: {run.files_seen} in inbox, {run.ingested} ingested, {len(run.quarantined)} quarantined, "
+           f"{run.files_known} already archived, {len(run.repeated_in_inbox)} repeated copies skipped"]
+    for q in run.quarantined:
+        out.append(f"  quarantined {q.name}: {q.reason}")
+    for rep in run.repeated_in_inbox:
+        out.append(f"  skipped repeated copy {rep}")
+    for dep, why in run.reruns.items():
+        out.append(f"  re-QC {dep}: " + "; ".join(why[:4]) + (f"; and {len(why) - 4} more" if len(why) > 4 else ""))
+    samples = sum(r.samples for r in run.results)
+    dup = sum(r.counts.get("duplicates", 0) for r in run.results)
+    con = sum(r.counts.get("conflicts", 0) for r in run.results)
+    pre = sum(r.counts.get("pre_deployment", 0) for r in run.results)
+    post = sum(r.counts.get("post_recovery", 0) for r in run.results)
+    out.append(f"samples: {samples} in {len(run.results)} dataset(s); {dup} repeated records from overlapping "
+               f"downloads dropped, {con} conflicting timestamps kept and flagged suspect; "
+               f"{pre} pre-deployment and {post} post-recovery samples trimmed")
+    tot = run.totals()
+    out.append("flags (aggregate, all variables): " +
+               ", ".join(f"{FLAG_WORDS[k]} {tot.get(k, 0)}" for k in FLAG_WORDS))
+    for r in run.results:
+        parts = "; ".join(f"{var}: " + " ".join(f"{FLAG_WORDS[k][:4]}={v}" for k, v in sorted(per.items()))
+                          for var, per in r.flag_counts.items())
+        out.append(f"  {r.station}/{r.deployment} v{r.version:03d}: {parts}")
+    baro = [r for r in run.results if r.air_pressure]
+    if baro:
+        out.append("barometric correction (air pressure subtracted for water level):")
+        out += [f"  {r.station}/{r.deployment}: {air_pressure_words(r.air_pressure)}" for r in baro]
+    notices = run.all_notices()
+    if notices:
+        out.append("needs attention:")
+        out += [f"  {n.line()}" for n in notices]
+    n_products = sum(len(r.products) for r in run.results)
+    out.append(f"outputs: {run.archive}/datasets, {n_products} derived products in {run.archive}/derived "
+               f"(catalog {run.archive}/catalog.sqlite)")
+    return out
+
