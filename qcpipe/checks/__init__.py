@@ -7,8 +7,10 @@ series length whatever its window, and never reads or writes files.
 
 from .flags import (
     FAIL,
+    FLAG_KEYS,
     FLAG_MEANINGS,
     FLAG_VALUES,
+    FLAG_WORDS,
     MISSING,
     NOT_EVALUATED,
     PASS,
@@ -25,8 +27,10 @@ from .spike import spike_flags
 
 __all__ = [
     "FAIL",
+    "FLAG_KEYS",
     "FLAG_MEANINGS",
     "FLAG_VALUES",
+    "FLAG_WORDS",
     "GAP_DTYPE",
     "MISSING",
     "NOT_EVALUATED",

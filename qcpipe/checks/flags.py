@@ -24,6 +24,11 @@ MISSING = np.int8(9)
 FLAG_VALUES = np.array([1, 2, 3, 4, 9], dtype=np.int8)
 #: Space-separated meanings of :data:`FLAG_VALUES` (CF ``flag_meanings``).
 FLAG_MEANINGS = "pass not_evaluated suspect fail missing"
+#: The word a person reads for each flag, keyed by the flag as text ("1".."9"), as flag counts
+#: are keyed in the catalog and the run summary; in the order of :data:`FLAG_VALUES`.
+FLAG_WORDS = {str(v): m.replace("_", " ") for v, m in zip(FLAG_VALUES.tolist(), FLAG_MEANINGS.split())}
+#: The flags as text, in order ("1", "2", "3", "4", "9").
+FLAG_KEYS = tuple(FLAG_WORDS)
 
 
 def grade(d: np.ndarray, suspect, fail, *, at_threshold: bool = False) -> np.ndarray:

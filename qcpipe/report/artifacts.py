@@ -11,10 +11,11 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from ..checks.flags import FLAG_KEYS, FLAG_WORDS
+from .model import NOTICE_KINDS, Notice
+
 SUMMARY_KEY = "qcpipe-run-summary"
 REPORT_KEY = "qcpipe-run-report"
-_FLAG_KEYS = ("1", "2", "3", "4", "9")
-_FLAG_WORDS = {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
 
 
 def _cell(value) -> str:
@@ -23,7 +24,8 @@ def _cell(value) -> str:
 
 
 def summary_markdown(run: dict) -> str:
-    """Markdown: the run's counts and a table of aggregate flags by class per station and variable."""
+    """Markdown: the run's counts, a table of aggregate flags by class per station and variable, the
+    barometric correction, and the notices (``Notice.as_dict()``), each with the words of its kind."""
     title = f"qcpipe run {int(run['run_id'])}" if run.get("run_id") is not None else "qcpipe run"
     results = run.get("results", [])
     lines = [f"# {title}", "",
@@ -35,12 +37,12 @@ def summary_markdown(run: dict) -> str:
     if run.get("quarantined"):
         lines.append("")
     if results:
-        lines.append("| station | deployment | variable | " + " | ".join(_FLAG_WORDS[k] for k in _FLAG_KEYS) + " |")
-        lines.append("|---|---|---|" + "---:|" * len(_FLAG_KEYS))
+        lines.append("| station | deployment | variable | " + " | ".join(FLAG_WORDS[k] for k in FLAG_KEYS) + " |")
+        lines.append("|---|---|---|" + "---:|" * len(FLAG_KEYS))
         for r in results:
             for var, per in sorted((r.get("flag_counts") or {}).items()):
                 lines.append(f"| {_cell(r['station'])} | {_cell(r['deployment'])} v{int(r.get('version', 0)):03d} "
-                             f"| {_cell(var)} | " + " | ".join(str(int(per.get(k, 0))) for k in _FLAG_KEYS) + " |")
+                             f"| {_cell(var)} | " + " | ".join(str(int(per.get(k, 0))) for k in FLAG_KEYS) + " |")
     else:
         lines.append("nothing new: no dataset written")
     baro = [r for r in results if (r.get("air_pressure") or {}).get("from_barometer") is not None]
@@ -50,9 +52,10 @@ def summary_markdown(run: dict) -> str:
                   f"{_cell(r['air_pressure'].get('barometer') or '(no data yet)')} at "
                   f"{int(r['air_pressure']['from_barometer'])} samples, configured constant at "
                   f"{int(r['air_pressure']['from_constant'])} (flagged suspect)" for r in baro]
-    notices = [n for r in results for n in r.get("notices", [])] + list(run.get("notices", []))
+    notices = [Notice.from_dict(n) for r in results for n in r.get("notices", [])]
+    notices += [Notice.from_dict(n) for n in run.get("notices", [])]
     if notices:
-        lines += ["", "## Needs attention", ""] + [f"* {_cell(n)}" for n in notices]
+        lines += ["", "## Needs attention", ""] + [f"* {NOTICE_KINDS[n.kind]}: {_cell(n.line())}" for n in notices]
     return "\n".join(lines) + "\n"
 
 

@@ -11,7 +11,13 @@ style sheet is inline, there is no script, and they open from disk without a
 server.  Links to datasets and derived products are relative paths into the
 archive.  Every page is written atomically (temporary file, then
 ``os.replace``); the overview is written last, so it never links to a page
-that is not there yet.  Every string taken from data is HTML-escaped.
+that is not there yet.
+
+Python prepares the values (numbers, table rows, figures as PNG ``data:``
+URIs); the Jinja2 templates in ``qcpipe/report/templates`` (``page.html.j2``,
+``index.html.j2``, ``station.html.j2``, ``macros.html.j2`` and the style
+sheet ``report.css``) write the markup, with autoescaping: every string taken
+from data is HTML-escaped.
 
 The ``run`` dict
 ----------------
@@ -33,13 +39,14 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
           "dataset": "/abs/path/qcpipe_..._v001.nc", "version": 1, "samples": 6039,
           "flag_counts": {"temperature": {"1": 6038, "3": 1}},   # aggregate flag -> count
           "counts": {"duplicates": 0, "conflicts": 0, "pre_deployment": 0, "post_recovery": 0},
-          "notices": ["kc-mid/kc-mid-probe-2026-09: probe clock about +60 min off ..."],
+          "notices": [{"kind": "clock", "text": "probe clock about +60 min off ...",
+                       "station": "kc-mid", "deployment": "kc-mid-probe-2026-09"}],   # Notice.as_dict()
           "products": ["/abs/path/derived/..."],
           "air_pressure": {"source": "...", "sensor": "absolute", "barometer": "kc-baro-2026-09 (v001)",
                            "from_barometer": 9980, "from_constant": 60, "constant_hpa": 1013.25},
                                             # (optional) level loggers: the air pressure subtracted
       }],
-      "notices": ["run-level notices"],     # (optional)
+      "notices": [{"kind": "run", "text": "...", "station": None, "deployment": None}],   # (optional) run-level
       "kind": "nightly",                    # (optional) catalog runs.kind: nightly, rerun
       "reruns": {"kc-mid-temp-2026-09": ["rule set changed"]},   # (optional) re-QC'd deployments and why
       "diff": [{                            # (optional) flags that changed from the previous version
@@ -57,41 +64,34 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
 ``qcpipe.diff.FlagDiff`` into these rows (``"first"`` and ``"last"`` are
 accepted instead of ``"ranges"``).
 
-Notices are sorted into the "Needs attention" groups by their wording (clock,
-probe readings, elevation, other); a dataset whose attributes say
-``clock_error_suspected = 1`` is listed even without a notice.
+Notices are listed under "Needs attention" by their ``kind`` (a key of
+``report.model.NOTICE_KINDS``, whose words head each entry), never by their
+words; a dataset whose attributes say ``clock_error_suspected = 1`` is listed
+even without a clock notice.
 """
 
 from __future__ import annotations
 
 import base64
 import datetime as dt
-import html
 import json
 import os
 import re
 from pathlib import Path
 
+import jinja2
 import numpy as np
 
 from ..archive.catalog import Catalog
 from ..archive.ncio import read_attrs, read_dataset
 from ..archive.store import safe_file_name
+from ..checks.flags import FLAG_KEYS, FLAG_WORDS
 from ..files import atomic_path
 from . import plots
+from .model import NOTICE_KINDS, Notice
 
-FLAG_KEYS = ("1", "2", "3", "4", "9")
-FLAG_WORDS = {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
 #: text symbols matching the plot markers (circle, square, triangle, cross, bar)
 FLAG_SYMBOLS = {"1": "\u25cf", "2": "\u25a0", "3": "\u25b2", "4": "\u2716", "9": "\u2758"}
-_NOTICE_LABEL = re.compile(r"^(?P<station>[A-Za-z0-9][\w.\-]*)/(?P<deployment>[A-Za-z0-9][\w.\-]*): (?P<text>.*)$",
-                           re.S)
-_VERSION_IN_NAME = re.compile(r"_v(\d{3,})(?=[_.])")
-
-
-def e(value) -> str:
-    """HTML-escaped text of any value (None as an empty string)."""
-    return "" if value is None else html.escape(str(value), quote=True)
 
 
 def _write_page(final: Path, text: str) -> Path:
@@ -106,6 +106,11 @@ def _write_page(final: Path, text: str) -> Path:
 
 # --- building the run dict ---------------------------------------------------------
 
+def _notice_dicts(notices) -> list[dict]:
+    """``Notice.as_dict()`` of each notice (plain JSON for the run dict)."""
+    return [n.as_dict() for n in notices]
+
+
 def run_from_summary(summary, *, run_id: int | None = None, started: str | None = None,
                      ended: str | None = None, outcome: str | None = None) -> dict:
     """The ``run`` dict (see the module docstring) from a ``pipeline.RunSummary``."""
@@ -116,14 +121,14 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "version": int(r.version), "samples": int(r.samples),
             "flag_counts": {str(v): {str(k): int(n) for k, n in per.items()} for v, per in r.flag_counts.items()},
             "counts": {str(k): int(n) for k, n in r.counts.items()},
-            "notices": [n.line() for n in r.notices], "products": [str(p) for p in r.products],
+            "notices": _notice_dicts(r.notices), "products": [str(p) for p in r.products],
             "air_pressure": json.loads(json.dumps(getattr(r, "air_pressure", {}) or {}))})
     return {"run_id": None if run_id is None else int(run_id), "started": started, "ended": ended,
             "outcome": outcome, "files_seen": int(summary.files_seen), "files_known": int(summary.files_known),
             "ingested": int(summary.ingested),
             "quarantined": [{"name": str(q.name), "reason": str(q.reason)} for q in summary.quarantined],
             "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox], "results": results,
-            "notices": [n.line() for n in getattr(summary, "notices", [])],
+            "notices": _notice_dicts(getattr(summary, "notices", [])),
             "reruns": {str(d): [str(w) for w in why] for d, why in getattr(summary, "reruns", {}).items()}}
 
 
@@ -255,89 +260,60 @@ class _Archive:
                                                                            for s in dataset_stems))
 
 
-# --- small HTML pieces -----------------------------------------------------------------
+# --- templates and small pieces ------------------------------------------------------
 
-CSS = """
-:root { --ink:#1b1b1b; --muted:#5a5a5a; --rule:#d7d7d7; --band:#f4f4f1; --link:#0072B2; }
-* { box-sizing: border-box; }
-body { font-family: "DejaVu Sans", "Liberation Sans", Arial, sans-serif; color: var(--ink);
-       margin: 0; background: #fff; line-height: 1.45; font-size: 15px; }
-header.top { background: #0b3954; color: #fff; padding: 14px 28px; }
-header.top h1 { margin: 0; font-size: 22px; font-weight: 600; }
-header.top p { margin: 4px 0 0; color: #d9e6ee; font-size: 14px; }
-header.top a { color: #fff; }
-main { max-width: 1180px; padding: 8px 28px 40px; }
-h2 { font-size: 19px; margin: 30px 0 10px; padding-bottom: 4px; border-bottom: 2px solid var(--rule); }
-h3 { font-size: 16px; margin: 22px 0 8px; }
-a { color: var(--link); }
-p.muted, span.muted, td.muted { color: var(--muted); }
-table { border-collapse: collapse; margin: 6px 0 14px; font-size: 14px; }
-th, td { border-bottom: 1px solid var(--rule); padding: 4px 10px; text-align: left; vertical-align: top; }
-th { background: var(--band); font-weight: 600; }
-table.facts th { background: none; font-weight: normal; color: var(--muted); padding-right: 18px; }
-td.n, th.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-td.c3 { background: #fbe8bf; } td.c4 { background: #f6cdb3; font-weight: 600; } td.c9 { background: #f1d9e6; }
-ul.attention { list-style: none; padding: 0; margin: 0; }
-ul.attention li { border-left: 6px solid #999; background: var(--band); margin: 8px 0; padding: 8px 12px; }
-ul.attention li.quarantine { border-color: #CC79A7; }
-ul.attention li.clock { border-color: #D55E00; }
-ul.attention li.probe { border-color: #E69F00; }
-ul.attention li.fail { border-color: #D55E00; }
-ul.attention li.other { border-color: #56B4E9; }
-ul.attention b.kind { display: inline-block; min-width: 12em; }
-.ok { border-left: 6px solid #009E73; background: var(--band); padding: 8px 12px; }
-figure { margin: 10px 0 22px; }
-figure img { max-width: 100%; height: auto; border: 1px solid var(--rule); }
-figcaption { color: var(--muted); font-size: 13px; margin-top: 4px; }
-.key span { display: inline-block; margin-right: 16px; white-space: nowrap; }
-.sym { font-size: 15px; }
-.note { background: #fff8dc; border: 1px solid #e6d690; padding: 8px 12px; margin: 8px 0 14px; }
-code { font-size: 13px; word-break: break-all; }
-nav.stations a { margin-right: 14px; }
-"""
+#: the page templates (``qcpipe/report/templates``), with autoescaping: every value from data is escaped
+_TEMPLATES = jinja2.Environment(
+    loader=jinja2.FileSystemLoader(Path(__file__).with_name("templates")),
+    autoescape=jinja2.select_autoescape(["html", "html.j2"], default_for_string=True),
+    undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
 
 
-def _page(title: str, subtitle: str, body: str) -> str:
-    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
-            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
-            f"<title>{e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n"
-            f"<header class=\"top\"><h1>{e(title)}</h1><p>{subtitle}</p></header>\n<main>\n{body}\n</main>\n"
-            "</body>\n</html>\n")
+def _render(template: str, **context) -> str:
+    return _TEMPLATES.get_template(template).render(**context)
 
 
-def _img(fig, alt: str, caption: str = "") -> str:
+# Parts of a table cell, drawn by the templates' ``show`` macro: a cell is text, a part, or a list of them.
+def _link(text, href: str) -> dict:
+    return {"href": href, "text": "" if text is None else str(text)}
+
+
+def _muted(text) -> dict:
+    return {"muted": str(text)}
+
+
+def _bold(text) -> dict:
+    return {"bold": str(text)}
+
+
+_BR = {"br": True}
+
+
+def _text(value) -> str:
+    """Text of any value from data (None as an empty string)."""
+    return "" if value is None else str(value)
+
+
+def _img(fig, alt: str, caption: str = "") -> dict:
+    """A figure for the templates: the PNG as a ``data:`` URI, its size in pixels, alt text and caption."""
     data = base64.b64encode(plots.png_bytes(fig)).decode("ascii")
     w, h = (int(round(x * fig.dpi)) for x in fig.get_size_inches())
-    cap = f"<figcaption>{caption}</figcaption>" if caption else ""
-    return (f"<figure><img src=\"data:image/png;base64,{data}\" alt=\"{e(alt)}\" width=\"{w}\" height=\"{h}\">"
-            f"{cap}</figure>")
+    return {"src": f"data:image/png;base64,{data}", "alt": alt, "width": w, "height": h, "caption": caption}
 
 
-def _facts(rows: list[list[str]]) -> str:
-    """A two-column table of (label, value) with no header row; cells already escaped."""
-    body = "".join(f"<tr><th scope=\"row\">{k}</th><td>{v}</td></tr>" for k, v in rows)
-    return f"<table class=\"facts\"><tbody>{body}</tbody></table>"
+def _table(header: list[str], rows: list[list], numeric: set[int] = frozenset()) -> dict:
+    """A table for the templates; ``numeric`` columns are right-aligned.  A cell given as a
+    tuple ``(cell, css class)`` keeps its own class."""
+    head = [{"text": h, "cls": "n" if i in numeric else None} for i, h in enumerate(header)]
+    body = [[{"v": c[0], "cls": c[1]} if isinstance(c, tuple) else {"v": c, "cls": "n" if i in numeric else None}
+             for i, c in enumerate(row)] for row in rows]
+    return {"head": head, "rows": body}
 
 
-def _table(header: list[str], rows: list[list[str]], numeric: set[int] = frozenset()) -> str:
-    """A table of already-escaped cells; ``numeric`` columns are right-aligned."""
-    head = "".join(f"<th class=\"n\">{h}</th>" if i in numeric else f"<th>{h}</th>" for i, h in enumerate(header))
-    body = []
-    for row in rows:
-        cells = []
-        for i, c in enumerate(row):
-            if isinstance(c, tuple):            # (html, css class)
-                cells.append(f"<td class=\"{c[1]}\">{c[0]}</td>")
-            else:
-                cells.append(f"<td class=\"n\">{c}</td>" if i in numeric else f"<td>{c}</td>")
-        body.append("<tr>" + "".join(cells) + "</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
-
-
-def _flag_key() -> str:
-    spans = "".join(f"<span><span class=\"sym\" style=\"color:{plots.FLAG_STYLE[int(k)][1]}\">{FLAG_SYMBOLS[k]}"
-                    f"</span> {k} {e(w)}</span>" for k, w in FLAG_WORDS.items())
-    return f"<p class=\"key\">Flag classes (aggregate, IOC primary scheme): {spans}</p>"
+def _flag_classes() -> list[dict]:
+    """The key of flag classes: each flag's symbol (as on the plots), colour and word."""
+    return [{"key": k, "word": w, "symbol": FLAG_SYMBOLS[k], "color": plots.FLAG_STYLE[int(k)][1]}
+            for k, w in FLAG_WORDS.items()]
 
 
 def _n(x) -> str:
@@ -348,7 +324,7 @@ def _pct(part: int, whole: int) -> str:
     if not whole:
         return ""
     p = 100.0 * part / whole
-    return "&lt;0.1%" if 0 < p < 0.1 else f"{p:.1f}%"
+    return "<0.1%" if 0 < p < 0.1 else f"{p:.1f}%"
 
 
 def _rel(target: Path, start: Path) -> str:
@@ -358,7 +334,7 @@ def _rel(target: Path, start: Path) -> str:
 def _href(target: Path, start: Path) -> str:
     from urllib.parse import quote
 
-    return e(quote(_rel(target, start)))
+    return quote(_rel(target, start))
 
 
 def _station_page_name(station: str) -> str:
@@ -367,20 +343,9 @@ def _station_page_name(station: str) -> str:
 
 # --- what needs attention ----------------------------------------------------------------
 
-def _notice_kind(text: str) -> str:
-    t = text.lower()
-    if "clock" in t:
-        return "clock"
-    if "bimodal" in t or "fouled" in t or "threshold" in t or "wet from dry" in t:
-        return "probe"
-    if "elevation" in t:
-        return "elevation"
-    return "other"
-
-
-def _split_notice(text: str) -> tuple[str | None, str | None, str]:
-    m = _NOTICE_LABEL.match(text)
-    return (m["station"], m["deployment"], m["text"]) if m else (None, None, text)
+#: css class of each notice kind in the "Needs attention" list (colour of its left border)
+_KIND_CLASS = {"clock": "clock", "fouling": "probe", "elevation": "probe", "quarantine": "quarantine",
+               "failures": "fail"}
 
 
 def _fails_by_station(results: list[dict]) -> list[tuple[str, int, int, str]]:
@@ -397,53 +362,40 @@ def _fails_by_station(results: list[dict]) -> list[tuple[str, int, int, str]]:
     return sorted(rows, key=lambda x: (-x[1], x[0]))
 
 
-def _attention_items(run: dict, archive: _Archive, station_filter: str | None = None) -> list[tuple[str, str, str]]:
-    """(css class, kind words, escaped html) for everything that needs a person's attention."""
-    items: list[tuple[str, str, str]] = []
+def _item(kind: str, where: str, text: str) -> dict:
+    """One entry of "Needs attention": css class, heading words of its kind, where, the sentence."""
+    return {"cls": _KIND_CLASS.get(kind, "other"), "kind": NOTICE_KINDS[kind], "where": where, "text": text}
+
+
+def _attention_items(run: dict, archive: _Archive, station_filter: str | None = None) -> list[dict]:
+    """Everything that needs a person's attention, grouped by the notices' kinds (never by their words)."""
+    items: list[dict] = []
     results = [r for r in run.get("results", []) if station_filter in (None, r.get("station"))]
     if station_filter is None:
         for q in run.get("quarantined", []):
-            items.append(("quarantine", "File quarantined",
-                          f"<b>{e(q.get('name'))}</b>: {e(q.get('reason'))}"))
-    notices = [n for r in results for n in r.get("notices", [])]
+            items.append(_item("quarantine", _text(q.get("name")), _text(q.get("reason"))))
+    notices = [Notice.from_dict(n) for r in results for n in r.get("notices", [])]
     if station_filter is None:
-        notices += list(run.get("notices", []))
-    clock_seen = set()
-    words = {"clock": "Clock looks wrong", "probe": "Probe readings", "elevation": "Sensor height",
-             "other": "Notice"}
-    for n in notices:
-        st, dep, text = _split_notice(str(n))
-        kind = _notice_kind(text)
-        if kind == "clock":
-            clock_seen.add(dep)
-        where = f"<b>{e(st)}/{e(dep)}</b>: " if st else ""
-        items.append(({"elevation": "probe"}.get(kind, kind), words[kind], where + e(text)))
+        notices += [Notice.from_dict(n) for n in run.get("notices", [])]
+    clock_seen = {n.deployment for n in notices if n.kind == "clock"}
+    items += [_item(n.kind, n.where, n.text) for n in notices]
     for r in results:           # suspected clock errors recorded in the dataset even without a notice
         row = archive.latest.get(r["deployment"])
         if r["deployment"] in clock_seen or row is None or row.get("local_path") is None:
             continue
         a = archive.attrs(row)
         if int(a.get("clock_error_suspected", 0) or 0) == 1:
-            items.append(("clock", "Clock looks wrong",
-                          f"<b>{e(r['station'])}/{e(r['deployment'])}</b>: {e(a.get('clock_verdict', ''))}"))
+            items.append(_item("clock", f"{r['station']}/{r['deployment']}", _text(a.get("clock_verdict", ""))))
     for r in results:
         conflicts = int((r.get("counts") or {}).get("conflicts", 0))
         if conflicts:
-            items.append(("other", "Downloads disagree",
-                          f"<b>{e(r['station'])}/{e(r['deployment'])}</b>: {_n(conflicts)} timestamp(s) with "
-                          "different values in overlapping downloads (first kept, flagged suspect)"))
+            items.append(_item("conflict", f"{r['station']}/{r['deployment']}",
+                               f"{_n(conflicts)} timestamp(s) with different values in overlapping downloads "
+                               "(first kept, flagged suspect)"))
     for st, fails, n, worst in _fails_by_station(results)[:3]:
-        items.append(("fail", "Failed samples",
-                      f"<b>{e(st)}</b>: {_n(fails)} of {_n(n)} samples fail ({_pct(fails, n)}, aggregate flags "
-                      f"of all variables); most in {e(worst)}"))
+        items.append(_item("failures", st, f"{_n(fails)} of {_n(n)} samples fail ({_pct(fails, n)}, aggregate "
+                                           f"flags of all variables); most in {worst}"))
     return items
-
-
-def _attention_html(items: list[tuple[str, str, str]], nothing: str) -> str:
-    if not items:
-        return f"<p class=\"ok\">{e(nothing)}</p>"
-    lis = "".join(f"<li class=\"{cls}\"><b class=\"kind\">{e(kind)}</b> {body}</li>" for cls, kind, body in items)
-    return f"<ul class=\"attention\">{lis}</ul>"
 
 
 # --- the overview page ----------------------------------------------------------------------
@@ -453,13 +405,12 @@ def _flag_rows(results: list[dict], *, link_station: bool) -> list[list]:
     for r in results:
         for var, per in sorted((r.get("flag_counts") or {}).items()):
             total = sum(int(v) for v in per.values())
-            st = (f"<a href=\"{e(_station_page_name(r['station']))}\">{e(r['station'])}</a>" if link_station
-                  else e(r["station"]))
-            row = [st, e(r["deployment"]), f"v{int(r.get('version', 0)):03d}", e(var)]
+            st = _link(r["station"], _station_page_name(r["station"])) if link_station else r["station"]
+            row = [st, r["deployment"], f"v{int(r.get('version', 0)):03d}", var]
             for k in FLAG_KEYS:
                 v = int(per.get(k, 0))
                 cls = f"n c{k}" if v and k in ("3", "4", "9") else "n"
-                row.append((_n(v) if v else "<span class=\"muted\">0</span>", cls))
+                row.append((_n(v) if v else _muted("0"), cls))
             bad = sum(int(per.get(k, 0)) for k in ("3", "4"))
             row.append((_pct(bad, total), "n"))
             rows.append(row)
@@ -470,24 +421,23 @@ _FLAG_HEADER = ["Station", "Deployment", "Version", "Variable"] + [
     f"{k} {FLAG_WORDS[k]}" for k in FLAG_KEYS] + ["suspect + fail"]
 
 
+def _flag_table(results: list[dict], *, link_station: bool) -> dict:
+    return _table(_FLAG_HEADER, _flag_rows(results, link_station=link_station), numeric={5, 6, 7, 8, 9, 10})
+
+
 def _run_title(run: dict) -> str:
     kind = f" {run['kind']}" if run.get("kind") else ""
     return f"qcpipe{kind} run {run['run_id']}" if run.get("run_id") is not None else f"qcpipe{kind} run"
 
 
-def _run_subtitle(run: dict, archive_root: Path) -> str:
-    parts = []
-    if run.get("started"):
-        parts.append(f"started {e(run['started'])}")
-    if run.get("ended"):
-        parts.append(f"ended {e(run['ended'])}")
-    if run.get("outcome"):
-        parts.append(f"outcome: {e(run['outcome'])}")
-    parts.append(f"archive <code style=\"color:#fff\">{e(archive_root)}</code>")
-    return " &middot; ".join(parts)
+def _run_meta(run: dict) -> list[tuple[str, str]]:
+    """(label, value) of the run for the overview's header: when it started and ended, its outcome."""
+    labels = {"started": "started ", "ended": "ended ", "outcome": "outcome: "}
+    return [(label, str(run[key])) for key, label in labels.items() if run.get(key)]
 
 
-def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
+def _this_run(run: dict, archive: _Archive, out_dir: Path) -> dict:
+    """The values of the overview's "This run" section."""
     results = run.get("results", [])
     known = any(r.get("counts") for r in results)
 
@@ -507,47 +457,33 @@ def _this_run_html(run: dict, archive: _Archive, out_dir: Path) -> str:
         ("samples trimmed before deployment", c("pre_deployment")),
         ("samples trimmed after recovery", c("post_recovery")),
     ]
-    out = ["<h2 id=\"this-run\">This run</h2>",
-           _table(["", "count"], [[e(k), "<span class=\"muted\">not recorded</span>" if v is None else _n(v)]
-                                  for k, v in facts], numeric={1})]
+    out = {"run_counts": _table(["", "count"], [[k, _muted("not recorded") if v is None else _n(v)]
+                                                for k, v in facts], numeric={1}),
+           "quarantined": None, "quarantine_dir": None, "reruns": None, "conflicts": None,
+           "repeated_in_inbox": [str(x) for x in run.get("repeated_in_inbox", [])],
+           "barometric": _barometric_table(results),
+           "flags": _flag_table(results, link_station=True) if results else None}
     if run.get("quarantined"):
-        out.append("<h3>Quarantined files</h3>")
-        out.append(_table(["File", "Reason"], [[e(q.get("name")), e(q.get("reason"))]
-                                                for q in run["quarantined"]]))
+        out["quarantined"] = _table(["File", "Reason"], [[_text(q.get("name")), _text(q.get("reason"))]
+                                                         for q in run["quarantined"]])
         qdir = archive.root / "quarantine"
-        if qdir.is_dir():
-            out.append(f"<p class=\"muted\">Copies and reasons are in "
-                       f"<code>{e(qdir)}</code>.</p>")
+        out["quarantine_dir"] = str(qdir) if qdir.is_dir() else None
     if run.get("reruns"):
-        out.append("<h3>Checked again from stored data</h3>")
-        out.append(_table(["Deployment", "Why"], [[e(d), e("; ".join(str(w) for w in why))]
-                                                  for d, why in sorted(run["reruns"].items())]))
-    if run.get("repeated_in_inbox"):
-        out.append("<h3>Repeated copies in the inbox (skipped)</h3><ul>" +
-                   "".join(f"<li>{e(x)}</li>" for x in run["repeated_in_inbox"]) + "</ul>")
+        out["reruns"] = _table(["Deployment", "Why"], [[d, "; ".join(str(w) for w in why)]
+                                                       for d, why in sorted(run["reruns"].items())])
     conflict_rows = []
     for r in results:
         n = int((r.get("counts") or {}).get("conflicts", 0))
         if n:
             p = archive.root / "conflicts" / f"{r['deployment']}.csv"
-            link = f"<a href=\"{_href(p, out_dir)}\">{e(p.name)}</a>" if p.exists() else ""
-            conflict_rows.append([e(r["station"]), e(r["deployment"]), _n(n), link])
+            link = _link(p.name, _href(p, out_dir)) if p.exists() else ""
+            conflict_rows.append([r["station"], r["deployment"], _n(n), link])
     if conflict_rows:
-        out.append("<h3>Downloads that disagree</h3>")
-        out.append(_table(["Station", "Deployment", "timestamps", "list"], conflict_rows, numeric={2}))
-    baro = _barometric_html(results)
-    if baro:
-        out.append(baro)
-    if results:
-        out.append("<h3>Flags by station and variable</h3>")
-        out.append(_flag_key())
-        out.append(_table(_FLAG_HEADER, _flag_rows(results, link_station=True), numeric={5, 6, 7, 8, 9, 10}))
-    else:
-        out.append("<p>Nothing new: no dataset was written in this run.</p>")
-    return "\n".join(out)
+        out["conflicts"] = _table(["Station", "Deployment", "timestamps", "list"], conflict_rows, numeric={2})
+    return out
 
 
-def _barometric_html(results: list[dict]) -> str:
+def _barometric_table(results: list[dict]) -> dict | None:
     """The air pressure each level dataset of the run subtracted: source, samples on the barometer and on the constant."""
     rows = []
     for r in results:
@@ -556,39 +492,35 @@ def _barometric_html(results: list[dict]) -> str:
             continue
         if "from_barometer" in a:
             what = f"barometer {a.get('barometer') or '(no data yet)'}; else {_fmt(a.get('constant_hpa'), 2, ' hPa')}"
-            rows.append([e(r["station"]), e(r["deployment"]), e(what), _n(a["from_barometer"]), _n(a["from_constant"])])
+            rows.append([r["station"], r["deployment"], what, _n(a["from_barometer"]), _n(a["from_constant"])])
         else:
-            rows.append([e(r["station"]), e(r["deployment"]), e(a.get("source", "")), "", ""])
+            rows.append([r["station"], r["deployment"], _text(a.get("source", "")), "", ""])
     if not rows:
-        return ""
-    return ("<h3 id=\"barometric-correction\">Barometric correction</h3>"
-            "<p>The air pressure subtracted from each level logger's pressure. Where the site's barometer had no "
-            "valid value (missing, failed its QC, a gap longer than allowed, outside its record) the configured "
-            "constant was used and those water levels are flagged suspect (check <code>barometer_fallback</code>).</p>"
-            + _table(["Station", "Deployment", "Air pressure from", "samples on the barometer",
-                      "samples on the constant (suspect)"], rows, numeric={3, 4}))
+        return None
+    return _table(["Station", "Deployment", "Air pressure from", "samples on the barometer",
+                   "samples on the constant (suspect)"], rows, numeric={3, 4})
 
 
-def _diff_html(diff: list[dict]) -> str:
+def _diff_table(diff: list[dict]) -> dict:
     rows = []
+
     def flag(x) -> str:
-        return "absent" if x is None else f"{e(x)} {e(FLAG_WORDS.get(str(x), ''))}".strip()
+        return "absent" if x is None else f"{x} {FLAG_WORDS.get(str(x), '')}".strip()
 
     for d in diff:
         ranges = [list(r) for r in d.get("ranges") or []]
         if not ranges and (d.get("first") or d.get("last")):
             ranges = [[d.get("first"), d.get("last")]]
-        shown = "<br>".join(e(a) if a == b else f"{e(a)} to {e(b)}" for a, b in ranges[:3])
+        shown: list = []
+        for a, b in ranges[:3]:
+            shown += ([_BR] if shown else []) + [_text(a) if a == b else f"{_text(a)} to {_text(b)}"]
         if len(ranges) > 3:
-            shown += f"<br><span class=\"muted\">and {len(ranges) - 3} more</span>"
-        rows.append([e(d.get("station")), e(d.get("deployment")), e(d.get("variable")), e(d.get("check")),
-                     f"{flag(d.get('from_flag'))} &rarr; {flag(d.get('to_flag'))}",
-                     _n(d.get("count", 0)), shown, e(d.get("rule_change"))])
-    return ("<h2 id=\"what-changed\">What changed</h2>"
-            "<p>Flags that differ from the previous version of each dataset, and the differences in the "
-            "inputs that were recorded for them.</p>" +
-            _table(["Station", "Deployment", "Variable", "Check", "Flag", "samples", "when (UTC)",
-                    "Input difference"], rows, numeric={5}))
+            shown += [_BR, _muted(f"and {len(ranges) - 3} more")]
+        rows.append([_text(d.get("station")), _text(d.get("deployment")), _text(d.get("variable")),
+                     _text(d.get("check")), f"{flag(d.get('from_flag'))} \u2192 {flag(d.get('to_flag'))}",
+                     _n(d.get("count", 0)), shown, _text(d.get("rule_change"))])
+    return _table(["Station", "Deployment", "Variable", "Check", "Flag", "samples", "when (UTC)",
+                   "Input difference"], rows, numeric={5})
 
 
 # --- station pages -----------------------------------------------------------------------------
@@ -630,55 +562,51 @@ def _fmt(x, nd=1, unit="") -> str:
     try:
         f = float(x)
     except (TypeError, ValueError):
-        return e(x)
+        return str(x)
     return "not recorded" if not np.isfinite(f) else f"{f:.{nd}f}{unit}"
 
 
-def _air_pressure_section(station: str, deployment: str, ds, attrs: dict) -> str:
+def _air_pressure_section(station: str, deployment: str, ds, attrs: dict) -> dict | None:
     """A level logger's barometric correction: where its air pressure came from, and a plot of it."""
     if "water_level_air_pressure_source" not in attrs:
-        return ""
-    facts = [["pressure sensor", e(attrs.get("pressure_sensor", ""))],
-             ["air pressure subtracted", e(attrs["water_level_air_pressure_source"])]]
+        return None
+    facts = [["pressure sensor", _text(attrs.get("pressure_sensor", ""))],
+             ["air pressure subtracted", _text(attrs["water_level_air_pressure_source"])]]
     if "water_level_air_pressure_from_barometer" in attrs:
         facts += [["samples on the barometer", _n(attrs["water_level_air_pressure_from_barometer"])],
                   ["samples on the constant (flagged suspect)", _n(attrs["water_level_air_pressure_from_constant"])]]
     if attrs.get("water_level_air_pressure_constant_ranges"):
-        facts.append(["on the constant (UTC)", e(attrs["water_level_air_pressure_constant_ranges"])])
-    out = "<h3>Barometric correction</h3>" + _facts(facts)
+        facts.append(["on the constant (UTC)", _text(attrs["water_level_air_pressure_constant_ranges"])])
+    figure = None
     if "air_pressure_subtracted" in ds.data_vars and "air_pressure_source" in ds.data_vars:
         src = ds["air_pressure_source"].values
         marks = np.where(src == 2, 3, 1).astype(np.int8)
         values, units = _display_values(ds, "air_pressure_subtracted")
         fig = plots.plot_variable(ds["time"].values, values, marks, name="air pressure subtracted", units=units,
                                   title=f"{station} {deployment}: air pressure subtracted")
-        out += _img(fig, f"air pressure subtracted at {station}",
-                    "Air pressure subtracted for the water level: circles (pass) from the site's barometer, "
-                    "triangles (suspect) the configured constant where the barometer had no valid value.")
-    return out
+        figure = _img(fig, f"air pressure subtracted at {station}",
+                      "Air pressure subtracted for the water level: circles (pass) from the site's barometer, "
+                      "triangles (suspect) the configured constant where the barometer had no valid value.")
+    return {"facts": facts, "figure": figure}
 
 
-def _clock_section(ds, attrs: dict) -> str:
+def _clock_section(ds, attrs: dict) -> dict | None:
     if "clock_transition_offset_s" not in attrs and "clock_verdict" not in attrs:
-        return ""
-    out = ["<h3>Probe clock against the tide</h3>"]
+        return None
     verdict = str(attrs.get("clock_verdict", "no verdict recorded"))
+    figure = None
     if "transition_offset" in ds.data_vars:
-        out.append(_img(plots.plot_transition_offsets(ds["transition_offset"].values, verdict_text=verdict),
-                        "histogram of transition offsets", "Offsets of the observed wet/dry transitions from the "
-                        "predicted ones (minutes). Tide values are for data quality control only."))
-    else:
-        out.append("<p class=\"note\">This dataset does not store the offset of each wet/dry transition, so no "
-                   "histogram can be drawn; these are the summary numbers the pipeline recorded.</p>")
+        figure = _img(plots.plot_transition_offsets(ds["transition_offset"].values, verdict_text=verdict),
+                      "histogram of transition offsets", "Offsets of the observed wet/dry transitions from the "
+                      "predicted ones (minutes). Tide values are for data quality control only.")
     suspected = int(attrs.get("clock_error_suspected", 0) or 0) == 1
-    rows = [["clock error suspected", "<b>yes</b>" if suspected else "no"],
+    rows = [["clock error suspected", _bold("yes") if suspected else "no"],
             ["median offset of observed from predicted transitions",
              _fmt(_minutes(attrs.get("clock_transition_offset_s")), 1, " min")],
             ["spread of the offsets", _fmt(_minutes(attrs.get("clock_offset_spread_s")), 1, " min")],
             ["wet/dry cross-correlation lag", _fmt(_minutes(attrs.get("clock_xcorr_lag_s")), 1, " min")],
-            ["verdict", e(verdict)]]
-    out.append(_facts(rows))
-    return "\n".join(out)
+            ["verdict", verdict]]
+    return {"figure": figure, "facts": rows}
 
 
 def _minutes(seconds):
@@ -688,55 +616,53 @@ def _minutes(seconds):
         return None
 
 
-def _exposure_section(archive: _Archive, station: str, stem: str) -> str:
+def _exposure_section(archive: _Archive, station: str, stem: str) -> dict | None:
     daily = archive.derived(station, stem, "daily_exposure")
     periods = archive.derived(station, stem, "emersion_periods")
     if daily is None and periods is None:
-        return ""
-    out = ["<h3>Time out of water</h3>"]
+        return None
+    out = {"figure": None, "facts": None}
     if daily is not None:
         dd = archive.read(daily)
         mt = dd["max_aerial_temperature"].values if "max_aerial_temperature" in dd else None
-        out.append(_img(plots.plot_daily_exposure(dd["day"].values, dd["hours_emersed"].values, mt,
-                                                  title=f"Daily exposure at {station}"),
-                        f"daily exposure at {station}",
-                        "Hours the sensing point was out of water per UTC day, and the highest temperature "
-                        "while emersed (from the station's temperature logger, fail and missing samples "
-                        "left out)."))
+        out["figure"] = _img(plots.plot_daily_exposure(dd["day"].values, dd["hours_emersed"].values, mt,
+                                                       title=f"Daily exposure at {station}"),
+                             f"daily exposure at {station}",
+                             "Hours the sensing point was out of water per UTC day, and the highest temperature "
+                             "while emersed (from the station's temperature logger, fail and missing samples "
+                             "left out).")
     if periods is not None:
         pp = archive.read(periods)
         dur = pp["duration"].values / 3600.0
         rows = [["emersion periods", _n(dur.size)]]
         if dur.size:
             i = int(np.nanargmax(dur))
-            rows.append(["longest", f"{dur[i]:.1f} h from {e(_iso(pp['start_time'].values[i]))}"])
+            rows.append(["longest", f"{dur[i]:.1f} h from {_iso(pp['start_time'].values[i])}"])
             mx = pp["max_temperature"].values
             if np.isfinite(mx).any():
                 j = int(np.nanargmax(mx))
-                rows.append(["hottest", f"{mx[j]:.1f} degC, emersion from {e(_iso(pp['start_time'].values[j]))}"])
+                rows.append(["hottest", f"{mx[j]:.1f} degC, emersion from {_iso(pp['start_time'].values[j])}"])
             rows.append(["with both ends observed", _n(int(np.sum(pp["both_ends_observed"].values == 1)))])
-        out.append(_facts(rows))
-    return "\n".join(out)
+        out["facts"] = rows
+    return out
 
 
-def _tide_section(archive: _Archive, station: str, stem: str) -> str:
+def _tide_section(archive: _Archive, station: str, stem: str) -> dict | None:
     events = archive.derived(station, stem, "tide_events")
     if events is None:
-        return ""
+        return None
     ev = archive.read(events)
     src = ev["event_source"].values if "event_source" in ev else np.zeros(ev.sizes.get("event", 0), np.int8)
     kind = ev["event_kind"].values if "event_kind" in ev else np.zeros_like(src)
-    out = ["<h3>High and low waters</h3>",
-           f"<p>{_n(np.sum((src == 1) & (kind == 1)))} observed high and {_n(np.sum((src == 1) & (kind == 0)))} "
-           f"observed low waters; {_n(np.sum(src == 0))} predicted events.</p>"]
+    out = {"high": _n(np.sum((src == 1) & (kind == 1))), "low": _n(np.sum((src == 1) & (kind == 0))),
+           "predicted": _n(np.sum(src == 0)), "datums": None, "note": None}
     datums = [(k[len("datum_"):-2].upper(), v) for k, v in ev.attrs.items()
               if k.startswith("datum_") and k.endswith("_m")]
     if datums:
-        out.append(_table(["Datum", f"m above {e(ev.attrs.get('vertical_datum', 'the datum'))}"],
-                          [[e(k), _fmt(v, 3)] for k, v in datums], numeric={1}))
-        if ev.attrs.get("datum_note"):
-            out.append(f"<p class=\"muted\">{e(ev.attrs['datum_note'])}</p>")
-    return "\n".join(out)
+        out["datums"] = _table(["Datum", f"m above {ev.attrs.get('vertical_datum', 'the datum')}"],
+                               [[k, _fmt(v, 3)] for k, v in datums], numeric={1})
+        out["note"] = _text(ev.attrs.get("datum_note")) or None
+    return out
 
 
 def _iso(t) -> str:
@@ -755,11 +681,11 @@ def _site_gauges(archive: _Archive, site_id: str) -> list[dict]:
     return out
 
 
-def _water_level_section(archive: _Archive, station: str, ds, attrs: dict) -> str:
+def _water_level_figure(archive: _Archive, station: str, ds, attrs: dict) -> dict | None:
     site = attrs.get("site_id")
     gauges = _site_gauges(archive, site) if site else []
     if not gauges:
-        return ""
+        return None
     g = gauges[0]
     gds = archive.read(g["local_path"])
     level = gds["water_level"].values.astype(np.float64)
@@ -772,10 +698,47 @@ def _water_level_section(archive: _Archive, station: str, ds, attrs: dict) -> st
     fig = plots.plot_water_level(gds["time"].values, level, pred, elevation_m=elev,
                                  datum_name=str(gds.attrs.get("vertical_datum", "datum")),
                                  title=f"Water level at {g['station']} ({g['deployment']})")
-    cap = (f"Observed water level at gauge {e(g['station'])} (fail and missing samples left out)"
-           f"{' and its harmonic prediction' if pred is not None else ''}, with the height of {e(what)}. "
+    cap = (f"Observed water level at gauge {g['station']} (fail and missing samples left out)"
+           f"{' and its harmonic prediction' if pred is not None else ''}, with the height of {what}. "
            "Tide values are for data quality control only, not for navigation or safety planning.")
-    return "<h3>Water level</h3>" + _img(fig, f"water level at {g['station']}", cap)
+    return _img(fig, f"water level at {g['station']}", cap)
+
+
+def _dataset_section(archive: _Archive, station: str, row: dict, in_run: dict, out_dir: Path,
+                     water_level_shown: bool) -> dict:
+    """The values of one dataset's part of a station page."""
+    ds = archive.read(row["local_path"])
+    attrs = dict(ds.attrs)
+    stem = Path(row["local_path"]).stem
+    note = "" if row["deployment"] in in_run else " (not updated in this run)"
+    info = [["instrument", _text(attrs.get("instrument", ""))],
+            ["time covered", f"{_text(attrs.get('time_coverage_start', ''))} to "
+                             f"{_text(attrs.get('time_coverage_end', ''))}"],
+            ["samples", _n(ds.sizes.get("time", 0))],
+            ["sensing point", f"{_fmt(_scalar(ds, 'sensor_height'), 2, ' m')} above "
+                              f"{_text(attrs.get('vertical_datum', 'the datum'))}"],
+            ["rule set", [_text(attrs.get("qc_rule_set", "")), " ",
+                          _muted(f"sha256 {str(attrs.get('qc_rule_set_sha256', ''))[:12]}")]],
+            ["raw files", _text(attrs.get("raw_file_names", ""))],
+            ["dataset", [_link(Path(row["local_path"]).name, _href(row["local_path"], out_dir)), note]]]
+    imm = ds["immersion"].values if "immersion" in ds.data_vars else None
+    figures = []
+    for var in _qc_variables(ds):
+        values, units = _display_values(ds, var)
+        fig = plots.plot_variable(ds["time"].values, values, ds[f"{var}_qc"].values, immersion=imm,
+                                  name=_var_label(ds, var), units=units,
+                                  title=f"{station} {row['deployment']}: {_var_label(ds, var)}")
+        long_name = ds[var].attrs.get("long_name", var)
+        figures.append(_img(fig, f"{var} at {station}",
+                            f"{long_name}; markers show the aggregate flag of each sample"
+                            f"{'; shaded: emersed (out of water)' if imm is not None and (imm == 0).any() else ''}."))
+    water = None
+    if "water_level" in ds.data_vars or (not water_level_shown and imm is not None and "wetness" in ds.data_vars):
+        water = _water_level_figure(archive, station, ds, attrs)
+    return {"deployment": row["deployment"], "version": int(row["version"]), "info": info, "figures": figures,
+            "water_level": water, "air_pressure": _air_pressure_section(station, row["deployment"], ds, attrs),
+            "clock": _clock_section(ds, attrs), "exposure": _exposure_section(archive, station, stem),
+            "tide": _tide_section(archive, station, stem)}
 
 
 def _station_html(station: str, archive: _Archive, run: dict, out_dir: Path) -> str:
@@ -783,66 +746,22 @@ def _station_html(station: str, archive: _Archive, run: dict, out_dir: Path) -> 
     first = archive.read(rows[0]["local_path"])
     a0 = first.attrs
     name = a0.get("station_name", station)
-    body = ["<p><a href=\"index.html\">&larr; back to the run overview</a></p>"]
-    facts = [["station", f"{e(station)} ({e(name)})"], ["site", e(a0.get("site_name", a0.get("site_id", "")))],
+    facts = [["station", f"{station} ({name})"], ["site", _text(a0.get("site_name", a0.get("site_id", "")))],
              ["latitude, longitude", f"{_fmt(_scalar(first, 'latitude'), 4)}, {_fmt(_scalar(first, 'longitude'), 4)}"],
-             ["vertical datum", e(a0.get("vertical_datum", ""))]]
-    body.append(_facts(facts))
-    items = _attention_items(run, archive, station_filter=station)
-    body.append("<h2 id=\"needs-attention\">Needs attention</h2>")
-    body.append(_attention_html(items, "Nothing at this station needs attention in this run."))
+             ["vertical datum", _text(a0.get("vertical_datum", ""))]]
     in_run = {r["deployment"]: r for r in run.get("results", []) if r.get("station") == station}
-    if in_run:
-        body.append("<h2>Flags in this run</h2>" + _flag_key() +
-                    _table(_FLAG_HEADER, _flag_rows(list(in_run.values()), link_station=False),
-                           numeric={5, 6, 7, 8, 9, 10}))
-    water_done = False
+    datasets, water_level_shown = [], False
     for row in rows:
-        ds = archive.read(row["local_path"])
-        attrs = dict(ds.attrs)
-        stem = Path(row["local_path"]).stem
-        body.append(f"<h2 id=\"{e(row['deployment'])}\">{e(row['deployment'])} "
-                    f"<span class=\"muted\">version {int(row['version'])}</span></h2>")
-        note = "" if row["deployment"] in in_run else " (not updated in this run)"
-        info = [["instrument", e(attrs.get("instrument", ""))],
-                ["time covered", f"{e(attrs.get('time_coverage_start', ''))} to {e(attrs.get('time_coverage_end', ''))}"],
-                ["samples", _n(ds.sizes.get("time", 0))],
-                ["sensing point", f"{_fmt(_scalar(ds, 'sensor_height'), 2, ' m')} above {e(attrs.get('vertical_datum', 'the datum'))}"],
-                ["rule set", f"{e(attrs.get('qc_rule_set', ''))} <span class=\"muted\">sha256 "
-                             f"{e(str(attrs.get('qc_rule_set_sha256', ''))[:12])}</span>"],
-                ["raw files", e(attrs.get("raw_file_names", ""))],
-                ["dataset", f"<a href=\"{_href(row['local_path'], out_dir)}\">{e(Path(row['local_path']).name)}</a>"
-                            f"{e(note)}"]]
-        body.append(_facts(info))
-        imm = ds["immersion"].values if "immersion" in ds.data_vars else None
-        for var in _qc_variables(ds):
-            values, units = _display_values(ds, var)
-            fig = plots.plot_variable(ds["time"].values, values, ds[f"{var}_qc"].values, immersion=imm,
-                                      name=_var_label(ds, var), units=units,
-                                      title=f"{station} {row['deployment']}: {_var_label(ds, var)}")
-            long_name = ds[var].attrs.get("long_name", var)
-            body.append(_img(fig, f"{var} at {station}",
-                             f"{e(long_name)}; markers show the aggregate flag of each sample"
-                             f"{'; shaded: emersed (out of water)' if imm is not None and (imm == 0).any() else ''}."))
-        if "water_level" in ds.data_vars or (not water_done and imm is not None and "wetness" in ds.data_vars):
-            sec = _water_level_section(archive, station, ds, attrs)
-            if sec:
-                body.append(sec)
-                water_done = True
-        body.append(_air_pressure_section(station, row["deployment"], ds, attrs))
-        body.append(_clock_section(ds, attrs))
-        body.append(_exposure_section(archive, station, stem))
-        body.append(_tide_section(archive, station, stem))
-    if not water_done:
-        body.append("<p class=\"muted\">Tide values in qcpipe's reports are for data quality control only, "
-                    "not for navigation or safety planning.</p>")
+        datasets.append(_dataset_section(archive, station, row, in_run, out_dir, water_level_shown))
+        water_level_shown = water_level_shown or datasets[-1]["water_level"] is not None
     stems = {Path(r["local_path"]).stem for r in rows}
-    files = archive.derived_files(station, stems)
-    if files:
-        body.append("<h2 id=\"products\">Derived files</h2><ul>" +
-                    "".join(f"<li><a href=\"{_href(p, out_dir)}\">{e(p.name)}</a></li>" for p in files) + "</ul>")
-    sub = f"{_run_title(run)} &middot; station page"
-    return _page(f"Station {station}: {name}", sub, "\n".join(b for b in body if b))
+    products = [_link(p.name, _href(p, out_dir)) for p in archive.derived_files(station, stems)]
+    return _render("station.html.j2", title=f"Station {station}: {name}", run_title=_run_title(run),
+                   station_page=True, station_facts=facts,
+                   attention=_attention_items(run, archive, station_filter=station),
+                   flags=_flag_table(list(in_run.values()), link_station=False) if in_run else None,
+                   flag_classes=_flag_classes(), datasets=datasets, water_level_shown=water_level_shown,
+                   products=products)
 
 
 # --- the whole report --------------------------------------------------------------------------------
@@ -899,25 +818,16 @@ def write_run_report(archive_root: str | Path, run: dict, *, out_dir: str | Path
     touched = {r.get("station") for r in run.get("results", [])}
     if station_pages:
         write_station_pages(root, run, stations, out_dir=out)
-    body = ["<h2 id=\"needs-attention\">Needs attention</h2>",
-            _attention_html(_attention_items(run, archive), "Nothing in this run needs attention."),
-            _this_run_html(run, archive, out)]
-    if run.get("diff"):
-        body.append(_diff_html(run["diff"]))
-    body.append("<h2 id=\"stations\">Stations</h2>")
-    if stations:
-        rows = []
-        for st in stations:
-            ds_rows = archive.datasets_of(st)
-            name = archive.attrs(ds_rows[0]).get("station_name", "")
-            rows.append([f"<a href=\"{e(_station_page_name(st))}\">{e(st)}</a>", e(name),
-                         e(", ".join(r["deployment"] for r in ds_rows)),
-                         "yes" if st in touched else "<span class=\"muted\">no</span>"])
-        body.append(_table(["Station", "Name", "Deployments (latest version)", "Updated in this run"], rows))
-    else:
-        body.append("<p>The archive holds no dataset yet.</p>")
-    body.append("<p class=\"muted\">Tide values in this report are for data quality control only; they are not "
-                "for navigation or safety planning.</p>")
+    station_rows = []
+    for st in stations:
+        ds_rows = archive.datasets_of(st)
+        station_rows.append([_link(st, _station_page_name(st)), _text(archive.attrs(ds_rows[0]).get("station_name", "")),
+                             ", ".join(r["deployment"] for r in ds_rows), "yes" if st in touched else _muted("no")])
     index = out / "index.html"
-    _write_page(index, _page(_run_title(run), _run_subtitle(run, root), "\n".join(body)))
+    _write_page(index, _render(
+        "index.html.j2", title=_run_title(run), run_meta=_run_meta(run), archive=str(root), station_page=False,
+        attention=_attention_items(run, archive), **_this_run(run, archive, out),
+        flag_classes=_flag_classes(), diff=_diff_table(run["diff"]) if run.get("diff") else None,
+        stations=_table(["Station", "Name", "Deployments (latest version)", "Updated in this run"], station_rows)
+        if station_rows else None))
     return index

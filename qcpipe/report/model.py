@@ -10,8 +10,7 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 
-#: aggregate flag codes as the run model counts them (text keys, as stored in the catalog)
-FLAG_CODES = ("1", "2", "3", "4", "9")
+from ..checks.flags import FLAG_KEYS
 
 #: kinds of notices, and the words a report heads them with
 NOTICE_KINDS = {
@@ -101,7 +100,7 @@ class RunSummary:
         return self.ingested == 0 and not self.quarantined and not self.results
 
     def totals(self) -> dict[str, int]:
-        tot = {k: 0 for k in FLAG_CODES}
+        tot = {k: 0 for k in FLAG_KEYS}
         for r in self.results:
             for per in r.flag_counts.values():
                 for k, v in per.items():

@@ -2,9 +2,8 @@
 
 from __future__ import annotations
 
+from ..checks.flags import FLAG_WORDS
 from .model import RunSummary
-
-FLAG_WORDS = {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
 
 
 def air_pressure_words(a: dict) -> str:

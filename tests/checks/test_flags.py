@@ -37,6 +37,15 @@ def test_flag_meanings_pair_with_flag_values():
     assert len(words) == FLAG_VALUES.size
 
 
+def test_flag_words_a_person_reads():
+    # the IOC primary flags' meanings (IOC Manuals and Guides 54 Vol. 3, 2013), in the words
+    # the reports print, keyed by the flag as text as the catalog's flag counts are
+    from qcpipe.checks import FLAG_KEYS, FLAG_WORDS
+
+    assert FLAG_WORDS == {"1": "pass", "2": "not evaluated", "3": "suspect", "4": "fail", "9": "missing"}
+    assert FLAG_KEYS == ("1", "2", "3", "4", "9")
+
+
 # Each case: values, flags of each check, expected aggregate (worked by hand from
 # the rule: 9 where value is NaN; else worst of 4 > 3 > 1 among checks giving
 # 1/3/4; 2 if none did).

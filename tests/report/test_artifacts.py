@@ -43,6 +43,18 @@ def test_markdown_cells_cannot_break_the_table():
 
 
 
+def test_markdown_lists_notices_with_their_kind_and_place():
+    run = {"run_id": 5, "files_seen": 1, "ingested": 1, "quarantined": [], "notices": [
+        {"kind": "run", "text": "the report was not written", "station": None, "deployment": None}],
+        "results": [{"station": "kc-mid", "deployment": "probe-9", "version": 1, "samples": 3,
+                     "flag_counts": {"wetness": {"1": 3}},
+                     "notices": [{"kind": "clock", "text": "an hour | late", "station": "kc-mid",
+                                  "deployment": "probe-9"}]}]}
+    md = summary_markdown(run)
+    assert md.endswith("## Needs attention\n\n* Clock looks wrong: kc-mid/probe-9: an hour \\| late\n"
+                       "* Run: the report was not written\n")
+
+
 def test_markdown_says_where_the_air_pressure_came_from():
     baro = {"source": "site barometer ...", "sensor": "absolute", "barometer": "b-1 (v002)",
             "from_barometer": 990, "from_constant": 10, "constant_hpa": 1013.25}

@@ -4,6 +4,7 @@ numbers the catalog recorded, the faults the demo generator injected, escaping."
 from __future__ import annotations
 
 import base64
+import html
 import io
 import json
 import re
@@ -16,7 +17,7 @@ import pytest
 
 from qcpipe.archive.ncio import read_dataset
 from qcpipe.report import run_from_catalog, write_run_report
-from qcpipe.report.html import FLAG_WORDS
+from qcpipe.checks.flags import FLAG_WORDS
 
 
 class Page(HTMLParser):
@@ -195,7 +196,8 @@ HOSTILE = '<script>alert("x")</script>&'
 def test_strings_from_data_are_escaped(report_case, tmp_path):
     run = json.loads(json.dumps(report_case.run))
     run["quarantined"] = [{"name": HOSTILE, "reason": f"reason {HOSTILE}"}]
-    run["results"][0]["notices"] = [f"{run['results'][0]['station']}/x: {HOSTILE}"]
+    run["results"][0]["notices"] = [{"kind": "fouling", "text": HOSTILE, "station": run["results"][0]["station"],
+                                     "deployment": f"x{HOSTILE}"}]
     run["diff"] = [{"station": "kc-low", "deployment": "kc-low-temp-2026-09", "variable": HOSTILE, "check": "spike",
                     "from_flag": 1, "to_flag": 3, "count": 12, "first": "2026-09-20T03:10:00Z",
                     "last": "2026-09-21T11:00:00Z", "rule_change": f"spike.suspect 4.0 -> 3.5 {HOSTILE}"},
@@ -207,12 +209,52 @@ def test_strings_from_data_are_escaped(report_case, tmp_path):
         text = page.read_text(encoding="utf-8")
         assert "<script" not in text, page.name
     text = index.read_text(encoding="utf-8")
-    assert text.count("&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;&amp;") >= 4
+    # escaped (the entity spelling of a quote is the escaper's choice): the text a browser shows
+    # holds the string, the markup does not
+    assert re.sub(r"<[^>]*>", "", text).count("&lt;script&gt;alert(") >= 5
+    assert html.unescape(re.sub(r"<[^>]*>", "", text)).count(HOSTILE) >= 5
     changed = Page(section(text, "What changed"))
     assert ["kc-low", "kc-low-temp-2026-09", HOSTILE, "spike", "1 pass \u2192 3 suspect", "12",
             "2026-09-20T03:10:00Z to 2026-09-21T11:00:00Z", f"spike.suspect 4.0 -> 3.5 {HOSTILE}"] in changed.rows
     absent = next(r for r in changed.rows if r[3] == "review")
     assert absent[4] == "absent \u2192 4 fail" and absent[6].endswith("and 2 more")
+
+
+def attention_entries(text: str) -> list[tuple[str, str, str]]:
+    """(css class, kind words, rest as text) of each entry of "Needs attention"."""
+    return [(cls, kind, html.unescape(re.sub(r"<[^>]*>", "", rest)).strip())
+            for cls, kind, rest in re.findall(r'<li class="([^"]*)"><b class="kind">([^<]*)</b>(.*?)</li>',
+                                              section(text, "Needs attention"), re.S)]
+
+
+def test_notices_are_grouped_by_kind_not_by_their_words(report_case, tmp_path):
+    run = json.loads(json.dumps(report_case.run))
+    (clock,) = [f for f in report_case.injected["faults"] if f["kind"] == "clock_one_hour_off"]
+    r = next(r for r in run["results"] if r["deployment"] == clock["deployment"])
+    r["notices"] = [
+        # no word "clock" in the sentence; and a fouling notice that speaks of a clock
+        {"kind": "clock", "text": "transitions come an hour late", "station": r["station"],
+         "deployment": r["deployment"]},
+        {"kind": "fouling", "text": "readings drift like a slow clock", "station": r["station"],
+         "deployment": r["deployment"]},
+        {"kind": "elevation", "text": "sits 0.2 m lower than the register says", "station": r["station"],
+         "deployment": r["deployment"]}]
+    run["notices"] = [{"kind": "barometer", "text": "the deck barometer was late", "station": None,
+                       "deployment": None}]
+    index = write_run_report(report_case.archive, run, out_dir=tmp_path / "kinds")
+    where = f"{r['station']}/{r['deployment']}"
+    for page in (index, index.parent / f"station-{r['station']}.html"):
+        got = attention_entries(page.read_text(encoding="utf-8"))
+        assert ("clock", "Clock looks wrong", f"{where}: transitions come an hour late") in got
+        assert ("probe", "Probe readings", f"{where}: readings drift like a slow clock") in got
+        assert ("probe", "Sensor height", f"{where}: sits 0.2 m lower than the register says") in got
+        # the clock notice stands for the dataset's clock_error_suspected: listed once
+        assert [g for g in got if g[1] == "Clock looks wrong" and where in g[2]] == [
+            ("clock", "Clock looks wrong", f"{where}: transitions come an hour late")]
+    got = attention_entries(index.read_text(encoding="utf-8"))
+    assert ("other", "Air pressure", "the deck barometer was late") in got
+    station_page = attention_entries((index.parent / f"station-{r['station']}.html").read_text(encoding="utf-8"))
+    assert not [g for g in station_page if "deck barometer" in g[2]]     # run-level: the overview only
 
 
 def test_run_dict_must_be_json(report_case, tmp_path):
@@ -263,9 +305,10 @@ def test_run_from_summary_is_plain_json():
 
     res = DeploymentResult("kc-low", "kc-low-temp-2026-09", Path("/a/x_v002.nc"), np.int64(2), np.int64(7),
                            {"temperature": {"1": np.int64(6), "4": np.int64(1)}}, {"conflicts": np.int64(0)},
-                           [Notice("clock", "note", "kc-low", "kc-low-temp-2026-09")], [Path("/a/p.csv")])
+                           [Notice("elevation", "note", "kc-low", "kc-low-temp-2026-09")], [Path("/a/p.csv")])
     s = RunSummary(files_seen=3, files_known=1, repeated_in_inbox=["b/x.csv"], ingested=2,
                    quarantined=[Quarantined("q.csv", "why")], results=[res], archive="/a")
+    s.notices = [Notice("run", "a plain sentence")]
     s.reruns = {"kc-low-temp-2026-09": ["rule set changed"]}
     run = run_from_summary(s, run_id=4, started="2026-12-01T02:00:00Z", ended="2026-12-01T02:01:00Z")
     back = json.loads(json.dumps(run))
@@ -273,6 +316,9 @@ def test_run_from_summary_is_plain_json():
     assert back["results"][0]["dataset"] == "/a/x_v002.nc" and back["results"][0]["version"] == 2
     assert back["quarantined"] == [{"name": "q.csv", "reason": "why"}]
     assert back["reruns"] == {"kc-low-temp-2026-09": ["rule set changed"]}
+    assert back["results"][0]["notices"] == [{"kind": "elevation", "text": "note", "station": "kc-low",
+                                              "deployment": "kc-low-temp-2026-09"}]
+    assert back["notices"] == [{"kind": "run", "text": "a plain sentence", "station": None, "deployment": None}]
     assert (back["run_id"], back["files_seen"], back["ingested"]) == (4, 3, 2)
 
 
