@@ -369,7 +369,7 @@ def case_ingest() -> dict:
     from qcpipe.convert.by_kind import physical_from_raw
     from qcpipe.ingest.readers import read_raw_file
     from qcpipe.ingest.timebase import utc_from_logger_time, window_mask
-    from qcpipe.qc import apply_rule_set
+    from qcpipe.apply_rules import apply_rule_set
 
     layouts = load_layouts(ROOT / "sample_raw" / "layouts.toml")
     layout = layouts.layouts["levelgauge"]

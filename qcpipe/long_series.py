@@ -1,7 +1,7 @@
 """Long series in bounded memory: the core checks in time chunks with overlap, written incrementally.
 
 **Core checks only**: gross range, climatology, spike, rate of change, flat line and gap (the
-checks of :func:`qcpipe.qc.flags_for_variable`) and their aggregate.  The state-aware, tide,
+checks of :func:`qcpipe.apply_rules.flags_for_variable`) and their aggregate.  The state-aware, tide,
 gating, download-conflict and manual flags of a normal run are *not* applied here; a
 deployment's archived dataset always comes from the normal pipeline.  This module is for
 screening a series too long for memory (a year at 1 Hz) with a variable's rules.
@@ -28,7 +28,7 @@ import numpy as np
 from .archive.ncio import SeriesWriter, read_series_blocks
 from .checks import aggregate_flags
 from .config.rules import VariableRules
-from .qc import flags_for_variable
+from .apply_rules import flags_for_variable
 
 
 def required_overlap_s(rules: VariableRules) -> float:

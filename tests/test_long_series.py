@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from qcpipe.checks import aggregate_flags
 from qcpipe.long_series import core_flags_in_chunks, core_qc_netcdf, required_overlap_s
 from qcpipe.config.rules import VariableRules
-from qcpipe.qc import flags_for_variable
+from qcpipe.apply_rules import flags_for_variable
 
 RULES = VariableRules.model_validate({
     "units": "degC",

@@ -18,9 +18,10 @@ from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
 from ..derive import products as derived
 from ..files import copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
-from ..qc import apply_rule_set, flag_counts
+from ..apply_rules import apply_rule_set, flag_counts
 from ..report.model import DatasetWritten, Notice
-from ..tidal import SiteTide, analyse_probe
+from ..probe_analysis import analyse_probe
+from ..tide_reference import SiteTide
 from .context import Context
 from .references import site_barometer, station_immersion
 from .store import COUNT_KEYS, Store, load_store, merge_new_files
@@ -43,7 +44,7 @@ class Prepared:
     qc_args: dict = field(default_factory=dict)    # immersion, reference level, extra flags for apply_rule_set
     tide_attrs: dict = field(default_factory=dict)
     notices: list = field(default_factory=list)    # Notice records
-    analysis: object = None                        # tidal.ProbeAnalysis of an immersion probe
+    analysis: object = None                        # probe_analysis.ProbeAnalysis of an immersion probe
     qc_key: str = ""                               # lineage: what this dataset is made from
     qc_inputs: dict = field(default_factory=dict)
 
@@ -54,7 +55,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
 
     ``new_files`` are the raw files merged in this run: their catalog rows are
     committed together with the dataset's, after the dataset is written.
-    ``tide`` is the station's tide reference (:class:`qcpipe.tidal.SiteTide`), or None.
+    ``tide`` is the station's tide reference (:class:`qcpipe.tide_reference.SiteTide`), or None.
     ``run_id``: the catalog run doing this; if that run already committed a
     version of the deployment (a task tried again after a passing I/O error),
     that version is returned and nothing is written twice.

@@ -10,7 +10,7 @@ from .. import lineage
 from ..archive.ncio import read_dataset
 from ..config.constituents import load_constituents
 from ..convert.by_kind import BarometerSeries
-from ..tidal import SiteTide, state_from_level
+from ..tide_reference import SiteTide, state_from_level
 from ..tide.exposure import immersion_at
 from .context import Context
 

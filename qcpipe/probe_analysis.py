@@ -1,8 +1,8 @@
-"""The tidal context of a station: reference water level, immersion state, timing verdicts.
+"""Immersion state of a probe deployment from its own readings, checked against the tide reference.
 
-Stage functions between the tide science (``qcpipe.tide``) and the pipeline:
-they take arrays and configuration objects, and read nothing but what they
-are given (the pipeline loads the site's constants and the gauge series).
+A stage between the tide science (``qcpipe.tide``) and the pipeline: it takes arrays and
+configuration objects, reads nothing, and returns the state, wetness, quality flags, typed
+findings (``notices``: kind and sentence) and the attributes the dataset records.
 """
 
 from __future__ import annotations
@@ -11,56 +11,15 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .checks import FAIL, MISSING, PASS, SUSPECT
+from .checks import MISSING, PASS, SUSPECT
 from .config.rules import ImmersionSettings, TideTiming
 from .convert.sensors import wetness_from_reading
 from .tide import classify
 from .tide.clock import ClockVerdict, clock_error_estimate
 from .tide.crossings import observed_transitions, predicted_crossings, transition_offsets
 from .tide.elevation import ElevationCheck, effective_elevation, elevation_check
-from .tide.harmonics import TideConstants, predict_tide
 
-_NS = 1_000_000_000
-
-
-@dataclass
-class SiteTide:
-    """What is known of the water level at a site: harmonic constants and/or an observed gauge."""
-    site_id: str
-    constants: TideConstants | None = None
-    gauge_time: np.ndarray | None = None          # datetime64[ns]
-    gauge_level: np.ndarray | None = None         # m above the site datum, failed/missing removed
-    gauge_name: str = ""
-    max_gauge_gap_s: float = 1800.0
-
-    def predicted(self, times) -> np.ndarray | None:
-        """Harmonic prediction at ``times`` (m above the site datum), or None without constants."""
-        if self.constants is None:
-            return None
-        return predict_tide(np.asarray(times, dtype="datetime64[ns]"), self.constants.constituents,
-                            mean_level=self.constants.mean_level_m)
-
-    def observed(self, times) -> np.ndarray | None:
-        """The gauge's level interpolated to ``times``; NaN outside its record and across its gaps."""
-        if self.gauge_time is None or self.gauge_time.size < 2:
-            return None
-        t = np.asarray(times, dtype="datetime64[ns]").astype(np.int64)
-        gt = self.gauge_time.astype("datetime64[ns]").astype(np.int64)
-        out = np.interp(t, gt, self.gauge_level, left=np.nan, right=np.nan)
-        i = np.clip(np.searchsorted(gt, t), 1, gt.size - 1)
-        out[(gt[i] - gt[i - 1]) > self.max_gauge_gap_s * _NS] = np.nan
-        return out
-
-    def reference(self, times) -> tuple[np.ndarray | None, str]:
-        """Reference level at ``times``: the observed gauge where it has data, else the prediction."""
-        obs, pred = self.observed(times), self.predicted(times)
-        if obs is None and pred is None:
-            return None, "none"
-        if obs is None:
-            return pred, "harmonic prediction"
-        if pred is None:
-            return obs, f"observed gauge {self.gauge_name}"
-        return np.where(np.isnan(obs), pred, obs), f"observed gauge {self.gauge_name} (prediction where it has no data)"
+from .tide_reference import SiteTide
 
 
 @dataclass
@@ -182,15 +141,3 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
 
 def _round(x, nd=1):
     return None if x is None or not np.isfinite(x) else round(float(x), nd)
-
-
-def state_from_level(times, level, *, elevation_m: float, margin_m: float) -> np.ndarray:
-    """Immersion state from a water level alone: 1 above elevation + margin, 0 below elevation - margin, else 2."""
-    lv = np.asarray(level, dtype=np.float64)
-    out = np.full(lv.shape, 2, np.int8)
-    out[lv > elevation_m + margin_m] = 1
-    out[lv < elevation_m - margin_m] = 0
-    return out
-
-
-__all__ = ["SiteTide", "ProbeAnalysis", "analyse_probe", "state_from_level", "FAIL"]
