@@ -31,7 +31,7 @@ class ProbeAnalysis:
     threshold: float
     threshold_source: str
     bimodality: float
-    notices: list[tuple[str, str]] = field(default_factory=list)   # (kind, sentence): kinds of report.model.NOTICE_KINDS
+    findings: list[tuple[str, dict]] = field(default_factory=list)   # (finding, its figures) about the readings
     attrs: dict = field(default_factory=dict)
     clock: ClockVerdict | None = None
     elevation: ElevationCheck | None = None
@@ -63,14 +63,14 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
     t = np.asarray(times, dtype="datetime64[ns]")
     r = np.asarray(reading, dtype=np.float64)
     ok = np.isfinite(r)
-    notices: list[tuple[str, str]] = []
+    findings: list[tuple[str, dict]] = []
     attrs: dict = {}
     quality = np.where(ok, PASS, MISSING).astype(np.int8)
     if np.count_nonzero(ok) < 10 or np.ptp(r[ok]) == 0:
-        notices.append(("fouling", "too few distinct probe readings to tell wet from dry; immersion unknown"))
+        findings.append(("too_few_readings", {}))
         state = np.full(r.size, 2, np.int8)
         quality[ok] = SUSPECT
-        return ProbeAnalysis(state, np.full(r.size, np.nan), quality, float("nan"), "none", 0.0, notices, attrs)
+        return ProbeAnalysis(state, np.full(r.size, np.nan), quality, float("nan"), "none", 0.0, findings, attrs)
     thr = classify.otsu_threshold(r)
     score = classify.bimodality_score(r, thr)
     lo, hi = float(np.mean(r[ok & (r < thr)])), float(np.mean(r[ok & (r >= thr)]))
@@ -79,8 +79,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
     source = "Otsu threshold of the deployment's readings"
     if score < settings.min_bimodality:
         quality[ok] = SUSPECT
-        notices.append(("fouling", f"probe readings not clearly bimodal (separation {score:.2f} < "
-                                   f"{settings.min_bimodality:.2f}): fouled, buried or failed probe? immersion flagged suspect"))
+        findings.append(("not_bimodal", {"score": float(score), "cutoff": float(settings.min_bimodality)}))
         if probe_reference is not None:
             thr = 0.5 * (probe_reference.air + probe_reference.water)
             source = "midpoint of the register's air/water references (readings not bimodal)"
@@ -89,9 +88,8 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
         dist = abs(probe_reference.water - probe_reference.air)
         attrs["immersion_reference_midpoint"] = mid
         if abs(thr - mid) > settings.reference_tolerance * dist:
-            notices.append(("fouling", f"automatic wet/dry threshold {thr:.4g} differs from the air/water reference "
-                           f"midpoint {mid:.4g} by more than {settings.reference_tolerance:.0%} of their distance; "
-                           "check the references or the probe"))
+            findings.append(("threshold_differs", {"threshold": float(thr), "midpoint": float(mid),
+                                                   "tolerance": float(settings.reference_tolerance)}))
     state = classify.classify_immersion(t, r, threshold=thr, hysteresis=settings.hysteresis_fraction * abs(hi - lo),
                                    min_state_s=settings.min_state, wet_is_high=wet_is_high)
     if probe_reference is not None:
@@ -102,7 +100,7 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
                  immersion_bimodality=round(float(score), 4),
                  immersion_hysteresis=float(settings.hysteresis_fraction * abs(hi - lo)),
                  immersion_min_state_s=float(settings.min_state))
-    result = ProbeAnalysis(state, wetness, quality, float(thr), source, float(score), notices, attrs)
+    result = ProbeAnalysis(state, wetness, quality, float(thr), source, float(score), findings, attrs)
     pred = tide.predicted(t) if tide is not None else None
     if pred is not None and np.count_nonzero(state != 2) > 10:
         verdict = clock_error_estimate(t, state, t, pred, elevation_m=elevation_m,
@@ -110,10 +108,8 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
                                               threshold_s=timing_rules.clock_error_threshold)
         result.clock = verdict
         attrs.update(clock_transition_offset_s=_round(verdict.offset_s), clock_offset_spread_s=_round(verdict.spread_s),
-                     clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected),
-                     clock_verdict=verdict.message)
+                     clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected))
         if verdict.suspected:
-            notices.append(("clock", verdict.message))
             quality[ok] = np.maximum(quality[ok], SUSPECT)
         shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
         obs = observed_transitions(t, state)
@@ -134,7 +130,6 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
             attrs.update(effective_elevation_m=_round(eff.median_m, 3), effective_elevation_spread_m=_round(eff.spread_m, 3),
                          effective_elevation_reference=ref_source)
             if check.suspect:
-                notices.append(("elevation", check.message))
                 quality[ok] = np.maximum(quality[ok], SUSPECT)
     return result
 

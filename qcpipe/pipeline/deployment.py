@@ -19,6 +19,7 @@ from ..derive import products as derived
 from ..files import copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
 from ..apply_rules import apply_rule_set, flag_counts
+from ..report.words import clock_verdict_text, elevation_text, probe_finding_text
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
 from ..tide_reference import SiteTide
@@ -110,8 +111,10 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
                                  timing_rules=ctx.rules.tide_timing, tide=tide)
         conv.variables["wetness"] = p.qc_vars["wetness"] = analysis.wetness
         conv.immersion = analysis.state
-        p.notices += [Notice(kind, text, station.id, p.dep.id) for kind, text in analysis.notices]
+        p.notices += probe_notices(analysis, station.id, p.dep.id)
         p.tide_attrs.update(analysis.attrs)
+        if analysis.clock is not None:
+            p.tide_attrs["clock_verdict"] = clock_verdict_text(analysis.clock)
         ref_level, ref_source = tide.reference(store.time) if tide is not None else (None, "none")
         p.tide_attrs["immersion_reference_level"] = ref_source
         p.analysis = analysis
@@ -130,6 +133,17 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
     if conv.barometer_used:
         p.qc_args["extra"] = {"water_level": {"barometer_fallback": barometer_fallback_flags(
             conv.variables["water_level"], conv.air_pressure_source == AIR_FROM_CONSTANT)}}
+
+
+def probe_notices(analysis, station_id: str, deployment_id: str) -> list[Notice]:
+    """What a probe's analysis found that a person should look at, as notices."""
+    out = [Notice("fouling", probe_finding_text(f, figures), station_id, deployment_id)
+           for f, figures in analysis.findings]
+    if analysis.clock is not None and analysis.clock.suspected:
+        out.append(Notice("clock", clock_verdict_text(analysis.clock), station_id, deployment_id))
+    if analysis.elevation is not None and analysis.elevation.suspect:
+        out.append(Notice("elevation", elevation_text(analysis.elevation), station_id, deployment_id))
+    return out
 
 
 def manual_ranges(ctx: Context, station_id: str, variables) -> tuple[dict, dict]:

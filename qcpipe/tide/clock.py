@@ -26,11 +26,12 @@ class ClockVerdict:
     lag_xcorr_s: float  #: cross-correlation lag, s, same sign convention
     suspected: bool
     whole_hours: int | None  #: nearest non-zero whole hours when suspected and close, else None
-    message: str
+    min_transitions: int  #: fewest matched transitions for a verdict (fewer: not assessed)
 
-
-def _minutes(seconds: float) -> str:
-    return "nan min" if not np.isfinite(seconds) else f"{int(round(seconds / 60)):+d} min"
+    @property
+    def assessed(self) -> bool:
+        """Enough matched transitions and a finite offset to judge the clock."""
+        return self.n_transitions >= self.min_transitions and bool(np.isfinite(self.offset_s))
 
 
 def clock_verdict(
@@ -71,7 +72,7 @@ def clock_verdict(
         the lag is not at the end of its range and
         ``|offset_s - lag_xcorr_s| <= agree_s``; ``whole_hours`` the nearest
         whole number of hours when suspected and within `whole_hour_tol_s` of
-        it, else None; a one-line message.
+        it, else None (the sentence a person reads: ``qcpipe.report.words.clock_verdict_text``).
 
     Notes
     -----
@@ -86,12 +87,8 @@ def clock_verdict(
     min_n = v.count(min_transitions, func=func, name="min_transitions", minimum=1)
 
     off, spread, n, lag_s = offsets.common_s, offsets.spread_s, offsets.n_matched, lag.lag_s
-    detail = (f"median transition offset {_minutes(off)} (spread {spread / 60:.0f} min, "
-              f"{n} transitions), cross-correlation lag {_minutes(lag_s)}")
     if n < min_n or not np.isfinite(off):
-        msg = (f"clock not assessed: {n} transitions matched to the prediction, at least "
-               f"{min_n} needed")
-        return ClockVerdict(off, spread, n, lag_s, False, None, msg)
+        return ClockVerdict(off, spread, n, lag_s, False, None, min_n)
     suspected = bool(
         abs(off) > threshold
         and spread < abs(off) / 2
@@ -100,20 +97,10 @@ def clock_verdict(
         and abs(off - lag_s) <= agree
     )
     if not suspected:
-        return ClockVerdict(off, spread, n, lag_s, False, None,
-                            f"no clock error suspected: {detail}")
+        return ClockVerdict(off, spread, n, lag_s, False, None, min_n)
     hours = int(round(off / 3600))
     whole = hours if hours != 0 and abs(off - 3600 * hours) <= hour_tol else None
-    side = "late" if off > 0 else "early"
-    fix = (f"logger times {'ahead' if off > 0 else 'behind'} by {abs(off) / 60:.0f} min: "
-           f"{'subtract' if off > 0 else 'add'} it to correct")
-    if whole is not None:
-        msg = (f"probe clock about {60 * whole:+d} min off: likely a UTC-offset or "
-               f"daylight-saving setting; transitions {side}, {detail}; {fix}")
-    else:
-        msg = (f"probe clock about {off / 60:+.0f} min off: transitions {side}, {detail}; "
-               f"check the logger clock; {fix}")
-    return ClockVerdict(off, spread, n, lag_s, True, whole, msg)
+    return ClockVerdict(off, spread, n, lag_s, True, whole, min_n)
 
 
 def clock_error_estimate(

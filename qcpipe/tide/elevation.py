@@ -26,9 +26,11 @@ class EffectiveElevation:
 class ElevationCheck(NamedTuple):
     """Result of :func:`elevation_check`."""
 
-    difference_m: float
+    difference_m: float  #: effective minus surveyed, m (NaN: not assessed)
     suspect: bool
-    message: str
+    effective: EffectiveElevation
+    surveyed_m: float
+    tolerance_m: float
 
 
 def effective_elevation(observed_flood, observed_drain, ref_times, ref_level) -> EffectiveElevation:
@@ -92,7 +94,7 @@ def elevation_check(effective: EffectiveElevation, surveyed_m: float, *,
     ElevationCheck
         ``difference_m = effective.median_m - surveyed_m`` (positive: the point
         behaves as if higher than surveyed), ``suspect = |difference_m| >
-        tolerance_m``, and a one-line message. With no transitions the
+        tolerance_m`` (the sentence: ``qcpipe.report.words.elevation_text``). With no transitions the
         difference is NaN and nothing is suspected.
 
     Notes
@@ -103,12 +105,6 @@ def elevation_check(effective: EffectiveElevation, surveyed_m: float, *,
     z = v.real_number(surveyed_m, func=func, name="surveyed_m")
     tol = v.positive(tolerance_m, func=func, name="tolerance_m")
     if effective.n == 0 or not np.isfinite(effective.median_m):
-        return ElevationCheck(math.nan, False,
-                              "elevation not assessed: no transitions inside the reference series")
+        return ElevationCheck(math.nan, False, effective, z, tol)
     diff = effective.median_m - z
-    detail = (f"effective elevation {effective.median_m:.3f} m (spread {effective.spread_m:.3f} m, "
-              f"{effective.n} transitions) vs surveyed {z:.3f} m: difference {diff:+.3f} m")
-    if abs(diff) > tol:
-        return ElevationCheck(diff, True, f"elevation suspect: {detail}, beyond "
-                                          f"{tol:.3f} m; check the survey and the datum")
-    return ElevationCheck(diff, False, f"elevation consistent: {detail}, within {tol:.3f} m")
+    return ElevationCheck(diff, bool(abs(diff) > tol), effective, z, tol)

@@ -24,6 +24,7 @@ from qcpipe.tide.crossings import (
     transition_offsets,
     wet_dry_lag,
 )
+from qcpipe.report.words import clock_verdict_text, elevation_text
 from qcpipe.tide.elevation import EffectiveElevation, effective_elevation, elevation_check
 
 S = 10**9  # nanoseconds per second
@@ -230,7 +231,7 @@ def test_verdict_rules(common_s, spread_s, lag_s, suspected, whole_hours):
 
 def test_verdict_needs_transitions_and_a_lag_inside_the_range():
     got = clock_verdict(offsets(3600, 60, n=3), LagEstimate(3600, 0.9, False))
-    assert not got.suspected and got.message.startswith("clock not assessed: 3 transitions")
+    assert not got.suspected and clock_verdict_text(got).startswith("clock not assessed: 3 transitions")
     got = clock_verdict(offsets(3600, 60), LagEstimate(3600, 0.9, True))
     assert not got.suspected
 
@@ -250,7 +251,7 @@ def test_whole_hour_clock_error_is_found_with_its_sign(level_fn, clock_ahead_s):
     assert got.lag_xcorr_s == pytest.approx(clock_ahead_s, abs=300)
     assert got.suspected and got.whole_hours == clock_ahead_s // 3600
     sign = "+" if clock_ahead_s > 0 else "-"
-    assert got.message.startswith(f"probe clock about {sign}60 min off: likely a UTC-offset "
+    assert clock_verdict_text(got).startswith(f"probe clock about {sign}60 min off: likely a UTC-offset "
                                   "or daylight-saving setting")
     # Six weeks hold about 42 * 24 / 12.42 * 2 = 162 transitions.
     assert 150 <= got.n_transitions <= 170
@@ -261,7 +262,7 @@ def test_correct_clock_is_not_reported():
     got = clock_error_estimate(t, state, *reference(m2_level), elevation_m=1.6)
     assert not got.suspected and got.whole_hours is None
     assert abs(got.offset_s) < 120 and abs(got.lag_xcorr_s) < 120
-    assert got.message.startswith("no clock error suspected")
+    assert clock_verdict_text(got).startswith("no clock error suspected")
 
 
 def test_25_minute_error_is_reported_but_not_as_whole_hours():
@@ -270,8 +271,8 @@ def test_25_minute_error_is_reported_but_not_as_whole_hours():
     assert got.offset_s == pytest.approx(1500, abs=300)
     assert got.lag_xcorr_s == pytest.approx(1500, abs=300)
     assert got.suspected and got.whole_hours is None
-    assert got.message.startswith("probe clock about +25 min off: transitions late")
-    assert "UTC-offset" not in got.message
+    assert clock_verdict_text(got).startswith("probe clock about +25 min off: transitions late")
+    assert "UTC-offset" not in clock_verdict_text(got)
 
 
 def test_elevation_error_is_not_taken_for_a_clock_error():
@@ -310,7 +311,7 @@ def test_effective_elevation_recovers_the_surveyed_elevation():
     assert 150 <= got.n <= 170
     check = elevation_check(got, 1.6, tolerance_m=0.1)
     assert not check.suspect and abs(check.difference_m) < 0.03
-    assert check.message.startswith("elevation consistent")
+    assert elevation_text(check).startswith("elevation consistent")
 
 
 def test_sensor_higher_than_surveyed_is_flagged():
@@ -320,7 +321,7 @@ def test_sensor_higher_than_surveyed_is_flagged():
                           1.6, tolerance_m=0.1)
     # Truly at 1.9 m, surveyed as 1.6 m: difference +0.3 m.
     assert got.suspect and got.difference_m == pytest.approx(0.3, abs=0.05)
-    assert got.message.startswith("elevation suspect")
+    assert elevation_text(got).startswith("elevation suspect")
 
 
 def test_effective_elevation_by_hand_and_outside_the_reference():

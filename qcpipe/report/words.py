@@ -1,0 +1,63 @@
+"""The sentences a person reads about a deployment's findings, written from typed results.
+
+Science modules return numbers and typed results (a clock verdict, an elevation check, a
+probe's findings); the words are chosen here, once, for the terminal summary, the report
+and the datasets' ``clock_verdict`` attribute alike.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..tide.clock import ClockVerdict
+from ..tide.elevation import ElevationCheck
+
+
+def _minutes(seconds: float) -> str:
+    return "nan min" if not np.isfinite(seconds) else f"{int(round(seconds / 60)):+d} min"
+
+
+def clock_verdict_text(v: ClockVerdict) -> str:
+    """One line on a probe's clock: not assessed, no error, or the error and how to correct it."""
+    if not v.assessed:
+        return (f"clock not assessed: {v.n_transitions} transitions matched to the prediction, at least "
+                f"{v.min_transitions} needed")
+    off = v.offset_s
+    detail = (f"median transition offset {_minutes(off)} (spread {v.spread_s / 60:.0f} min, "
+              f"{v.n_transitions} transitions), cross-correlation lag {_minutes(v.lag_xcorr_s)}")
+    if not v.suspected:
+        return f"no clock error suspected: {detail}"
+    side = "late" if off > 0 else "early"
+    fix = (f"logger times {'ahead' if off > 0 else 'behind'} by {abs(off) / 60:.0f} min: "
+           f"{'subtract' if off > 0 else 'add'} it to correct")
+    if v.whole_hours is not None:
+        return (f"probe clock about {60 * v.whole_hours:+d} min off: likely a UTC-offset or "
+                f"daylight-saving setting; transitions {side}, {detail}; {fix}")
+    return (f"probe clock about {off / 60:+.0f} min off: transitions {side}, {detail}; "
+            f"check the logger clock; {fix}")
+
+
+def elevation_text(c: ElevationCheck) -> str:
+    """One line on the effective elevation of a sensing point against its surveyed one."""
+    if not np.isfinite(c.difference_m):
+        return "elevation not assessed: no transitions inside the reference series"
+    e = c.effective
+    detail = (f"effective elevation {e.median_m:.3f} m (spread {e.spread_m:.3f} m, {e.n} transitions) "
+              f"vs surveyed {c.surveyed_m:.3f} m: difference {c.difference_m:+.3f} m")
+    if c.suspect:
+        return f"elevation suspect: {detail}, beyond {c.tolerance_m:.3f} m; check the survey and the datum"
+    return f"elevation consistent: {detail}, within {c.tolerance_m:.3f} m"
+
+
+def probe_finding_text(finding: str, figures: dict) -> str:
+    """One line on a probe record's readings (``ProbeAnalysis.findings``)."""
+    if finding == "too_few_readings":
+        return "too few distinct probe readings to tell wet from dry; immersion unknown"
+    if finding == "not_bimodal":
+        return (f"probe readings not clearly bimodal (separation {figures['score']:.2f} < "
+                f"{figures['cutoff']:.2f}): fouled, buried or failed probe? immersion flagged suspect")
+    if finding == "threshold_differs":
+        return (f"automatic wet/dry threshold {figures['threshold']:.4g} differs from the air/water reference "
+                f"midpoint {figures['midpoint']:.4g} by more than {figures['tolerance']:.0%} of their distance; "
+                "check the references or the probe")
+    raise ValueError(f"unknown probe finding {finding!r}")
