@@ -5,7 +5,7 @@ PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 TESTSTAMP := $(VENV)/.installed-test
 
-.PHONY: demo test check-config clean-demo demo-data bench
+.PHONY: demo test check-config clean-demo demo-data bench digest
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
@@ -46,3 +46,10 @@ clean-demo:
 bench: $(STAMP)
 	$(PY) benchmarks/run.py
 	$(PY) benchmarks/dask_speedup.py
+
+## make digest: record the demo's output digest (tests/reference/demo_outputs_digest.json) after a change
+## that is meant to alter outputs; say so in the commit message
+digest: $(STAMP)
+	rm -rf demo_archive
+	$(VENV)/bin/qcpipe process --workspace sample_raw/workspace.toml --quiet
+	$(PY) tools/output_digest.py demo_archive > tests/reference/demo_outputs_digest.json

@@ -461,3 +461,22 @@ def test_summary_and_report_show_the_barometric_correction(demo_run):
     assert "Barometric correction" in html and fb["barometer"] in html
     page = (index.parent / "station-kc-pier.html").read_text()
     assert "Barometric correction" in page and "samples on the constant" in page
+
+
+# --- regression: the demo's outputs do not change by accident -----------------------------
+
+def test_demo_outputs_match_the_recorded_digest(demo_run):
+    # A regression pin, not a check of correctness: tests/reference/demo_outputs_digest.json was
+    # recorded from the demo's outputs before the package was restructured (issue of the layered
+    # layout) and holds the SHA-256 of every variable, flag and attribute except the run's own
+    # times and history (tools/output_digest.py).  A change meant to alter outputs refreshes it
+    # with `make digest` and says so in its commit message; any other difference is a regression.
+    import subprocess
+    import sys
+
+    from tests.conftest import REPO
+
+    done = subprocess.run([sys.executable, str(REPO / "tools" / "output_digest.py"), str(demo_run.archive),
+                           "--against", str(REPO / "tests" / "reference" / "demo_outputs_digest.json")],
+                          capture_output=True, text=True)
+    assert done.returncode == 0, done.stdout + done.stderr
