@@ -22,14 +22,14 @@ import datetime as dt
 from pathlib import Path
 from typing import Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, model_validator
 
-from .loading import check_safe_id, content_sha256, read_toml, validate
+from .loading import StationId, content_sha256, read_toml, validate
 
 
 class Annotation(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
-    station: str
+    station: StationId
     variables: list[str] = Field(min_length=1)
     start: AwareDatetime
     end: AwareDatetime
@@ -38,10 +38,6 @@ class Annotation(BaseModel):
     reviewer: str = Field(min_length=1)
     date: dt.date
 
-    @field_validator("station")
-    @classmethod
-    def _safe(cls, v):
-        return check_safe_id(v, "station id")
 
     @model_validator(mode="after")
     def _order(self):

@@ -11,7 +11,7 @@ import json
 import re
 import tomllib
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import Annotated, Any, TypeVar
 
 import pydantic
 
@@ -31,6 +31,18 @@ def check_safe_id(value: str, what: str) -> str:
             f"{what} {value!r} is not a safe identifier; use 1-64 letters, digits, "
             "'-', '_' or '.', starting with a letter or digit (no '/', '..' or spaces)")
     return value
+
+
+def safe_id(what: str):
+    """A pydantic string type holding a safe identifier (:func:`check_safe_id`); ``what`` names it in errors.
+
+    The one definition of identifier validation: ``id: safe_id("station id")``.
+    """
+    return Annotated[str, pydantic.AfterValidator(lambda v: check_safe_id(v, what))]
+
+
+SiteId, StationId, Serial, DeploymentId = (safe_id("site id"), safe_id("station id"), safe_id("instrument serial"),
+                                           safe_id("deployment id"))
 
 
 def read_toml(path: Path) -> dict[str, Any]:

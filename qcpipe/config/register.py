@@ -36,7 +36,7 @@ from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validato
 
 from ..errors import ConfigError
 from ..units import seconds_from_duration
-from .loading import check_safe_id, content_sha256, read_toml, validate
+from .loading import DeploymentId, Serial, SiteId, StationId, content_sha256, read_toml, validate
 
 InstrumentKind = Literal["immersion_probe", "temperature", "ph", "conductivity", "pressure", "barometer"]
 
@@ -74,20 +74,16 @@ class RegisterInfo(_Strict):
 
 
 class Site(_Strict):
-    id: str
+    id: SiteId
     name: str
     vertical_datum: str = Field(description="name of the vertical datum that elevations refer to")
     description: str = ""
     tide_constituents: str | None = Field(None, description="harmonic constants file (relative to the register)")
 
-    @field_validator("id")
-    @classmethod
-    def _safe(cls, v: str) -> str:
-        return check_safe_id(v, "site id")
 
 
 class Station(_Strict):
-    id: str
+    id: StationId
     site: str
     name: str
     latitude: float = Field(ge=-90, le=90)
@@ -95,22 +91,14 @@ class Station(_Strict):
     elevation_m: float = Field(description="sensing point above the site's vertical datum, metres")
     description: str = ""
 
-    @field_validator("id")
-    @classmethod
-    def _safe(cls, v: str) -> str:
-        return check_safe_id(v, "station id")
 
 
 class Instrument(_Strict):
-    serial: str
+    serial: Serial
     kind: InstrumentKind
     layout: str
     description: str = ""
 
-    @field_validator("serial")
-    @classmethod
-    def _safe(cls, v: str) -> str:
-        return check_safe_id(v, "instrument serial")
 
 
 class ClockCheck(_Strict):
@@ -191,7 +179,7 @@ class PressureSettings(_Strict):
 
 
 class Deployment(_Strict):
-    id: str
+    id: DeploymentId
     station: str
     instrument: str
     start: AwareDatetime
@@ -203,10 +191,6 @@ class Deployment(_Strict):
     pressure: PressureSettings | None = None
     ph_calibration: PhCalibration | None = None
 
-    @field_validator("id")
-    @classmethod
-    def _safe(cls, v: str) -> str:
-        return check_safe_id(v, "deployment id")
 
     @field_validator("start", "end", "clock_set")
     @classmethod

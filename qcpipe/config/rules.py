@@ -30,7 +30,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from ..errors import ConfigError
 from ..units import seconds_from_duration
-from .loading import check_safe_id, content_sha256, read_toml, shown, shown_key, validate
+from .loading import check_safe_id, content_sha256, read_toml, safe_id, shown, shown_key, validate
 
 #: stored units of each variable the checks can see
 VARIABLE_UNITS = {
@@ -250,13 +250,9 @@ class TideTiming(_Strict):
 
 
 class RuleSetInfo(_Strict):
-    name: str
+    name: safe_id("rule set name")
     description: str = ""
 
-    @field_validator("name")
-    @classmethod
-    def _safe(cls, v):
-        return check_safe_id(v, "rule set name")
 
 
 class _RuleFile(_Strict):

@@ -14,7 +14,7 @@ every count lands in the run's summary (:class:`qcpipe.report.model.RunSummary`)
 
 from ..report.model import RunSummary
 from .context import Context, load_context
-from .deployment import DeploymentResult, prune_versions, qc_deployment, qc_station, update_deployment
+from .deployment import DeploymentResult, prune_versions, qc_deployment, qc_station
 from .files import FileOutcome, find_new_files, group_by_deployment, quarantine_file, read_one_file
 from .plan import QcPlan, check_deployment_ids, plan_qc, stale_deployments
 from .references import site_barometer, site_tide, station_immersion
@@ -24,4 +24,4 @@ __all__ = ["Context", "DeploymentResult", "FileOutcome", "QcPlan", "RunSummary",
            "check_deployment_ids", "find_new_files", "group_by_deployment", "load_context", "load_store",
            "merge_new_files", "plan_qc", "prune_versions", "qc_deployment", "qc_station", "quarantine_file",
            "read_one_file", "rebuild_store", "site_barometer", "site_tide", "stale_deployments",
-           "station_immersion", "update_deployment"]
+           "station_immersion"]

@@ -25,7 +25,7 @@ from ..probe_analysis import analyse_probe
 from ..tide_reference import SiteTide
 from .context import Context
 from .references import site_barometer, station_immersion
-from .store import COUNT_KEYS, Store, load_store, merge_new_files
+from .store import COUNT_KEYS, Store, load_store
 
 
 #: one dataset version written by a run (the run model's record)
@@ -293,12 +293,6 @@ def _add_transitions(ds: xr.Dataset, enc: dict, a) -> None:
         long_name="observed minus predicted transition time (positive: logger clock ahead)", units="s"))
     enc.update(transition_time={"_FillValue": None}, transition_kind={"_FillValue": None},
                transition_offset={"_FillValue": np.float64(np.nan)})
-
-
-def update_deployment(ctx: Context, deployment_id: str, files: list[IngestedFile], tide=None) -> DeploymentResult:
-    """Merge new files into the deployment's store, then QC it and write a new version."""
-    store = merge_new_files(ctx, deployment_id, files)
-    return qc_deployment(ctx, deployment_id, new_files=files, store=store, tide=tide)
 
 
 

@@ -58,11 +58,6 @@ def _latest_valid(ctx: Context, deployment_ids, variable: str):
 
 # --- the tide around a station ----------------------------------------------------
 
-def _kind(ctx: Context, deployment_id: str) -> str:
-    dep = ctx.register.deployment_by_id(deployment_id)
-    return ctx.register.instrument_by_serial(dep.instrument).kind
-
-
 def site_tide(ctx: Context, site_id: str) -> SiteTide:
     """The site's harmonic constants (if the register names a file) and its observed gauge.
 
