@@ -92,6 +92,17 @@ time = { columns = ["stamp"], format = "iso8601" }
 serial = { source = "filename", pattern = "^([A-Z]+-\\d+)_" }
 [layout.isorows.variables]
 temperature = { column = "T", units = "degC" }
+
+[layout.millis]
+file_glob = "*.msd"
+delimiter = ";"
+column_names = false
+missing = ["-999"]
+bad_lines = "skip"
+time = { columns = [0], format = "epoch_milliseconds" }
+serial = { source = "filename", pattern = "^([A-Z]+-\\d+)_" }
+[layout.millis.variables]
+temperature = { column = 1, units = "degF" }
 '''
 
 RULES = """
@@ -108,6 +119,10 @@ LOGGERS = [("EP-1", "epochs", "+02:00"),       # the file is UTC: the register's
            ("KV-3", "keyed", "-03:00"),        # same as the header's offset: no note
            ("QU-4", "quoted", "+01:00"),       # logger clock: the register's offset applies
            ("IS-5", "isorows", "+00:00")]
+#: epoch milliseconds, no column names, CR line ends, degF, a missing marker, one unreadable record
+#: skipped by the layout and a truncated last line; checked on its own (not every row survives)
+MILLIS = ("MS-6", "millis", "+00:00")
+MS_MISSING, MS_GARBAGE = 7, 40                 # sample index whose value is -999; row replaced by garbage
 
 
 def temperature(i: int, k: int) -> float:
@@ -143,6 +158,12 @@ def files() -> dict[str, bytes]:
     zones = [dt.timezone(dt.timedelta(hours=h)) for h in (0, 5, -7)]
     out["IS-5_y.iso"] = ("stamp\tT\n" + "".join(
         f"{t.astimezone(zones[i % 3]).isoformat()}\t{temperature(i, 4)}\n" for i, t in enumerate(m))).encode()
+    rows = []
+    for i, t in enumerate(m):
+        degf = temperature(i, 5) * 9 / 5 + 32
+        rows.append("garbage;;" if i == MS_GARBAGE else
+                    f"{int(t.timestamp()) * 1000};{-999 if i == MS_MISSING else f'{degf:.4f}'}")
+    out["MS-6_z.msd"] = ("\r".join(rows) + "\r" + f"{int(m[-1].timestamp()) * 1000 + 600000}").encode()
     return out
 
 
@@ -156,7 +177,7 @@ def layout_run(tmp_path_factory):
     inst = "\n".join(f'[[instrument]]\nserial = "{s}"\nkind = "temperature"\nlayout = "{lay}"\n\n'
                      f'[[deployment]]\nid = "dep-{s.lower()}"\nstation = "ts-a"\ninstrument = "{s}"\n'
                      f'start = 2026-10-24T12:00:00Z\nend = 2026-10-26T00:00:00Z\nclock_offset = "{off}"\n'
-                     for s, lay, off in LOGGERS)
+                     for s, lay, off in LOGGERS + [MILLIS])
     (root / "register.toml").write_text(REGISTER.format(instruments=inst))
     (root / "layouts.toml").write_text(LAYOUTS)
     (root / "rules.toml").write_text(RULES)
@@ -179,7 +200,21 @@ def dataset(root, serial):
 def test_run_reads_every_layout(layout_run):
     root, done = layout_run
     assert done.returncode == 0, done.stderr
-    assert "5 ingested, 0 quarantined" in done.stdout, done.stdout
+    assert "6 ingested, 0 quarantined" in done.stdout, done.stdout
+
+
+def test_millisecond_stamps_skipped_record_missing_value_and_truncated_line(layout_run):
+    root, _ = layout_run
+    ds = dataset(root, MILLIS[0])
+    keep = [i for i in range(N) if i != MS_GARBAGE]          # the garbage record skipped, the cut last line dropped
+    truth = np.array([moments()[i].replace(tzinfo=None) for i in keep], dtype="datetime64[ns]")
+    np.testing.assert_array_equal(ds["time"].values, truth)
+    # degF -> degC by the definition of the scales: (F - 32) * 5 / 9, written to 4 decimals in the file
+    want = np.array([np.nan if i == MS_MISSING else temperature(i, 5) for i in keep])
+    np.testing.assert_allclose(ds["temperature"].values, want, rtol=0, atol=1e-4)
+    reading = json.loads(ds.attrs["raw_file_reading"])
+    text = json.dumps(reading)
+    assert "bad_lines" in text and "truncated_last_line" in text
 
 
 @pytest.mark.parametrize("k, serial", [(k, s) for k, (s, _, _) in enumerate(LOGGERS)], ids=[s for s, _, _ in LOGGERS])
