@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import shutil
+from pathlib import Path
 
 import pytest
 
@@ -81,8 +82,6 @@ def test_every_inbox_file_archived_or_quarantined(demo):
 
 
 def pathlib_rel(path: str, inbox) -> str:
-    from pathlib import Path
-
     return str(Path(path).resolve().relative_to(inbox.resolve()))
 
 
@@ -125,7 +124,8 @@ def test_rerun_of_a_probe_writes_the_next_version_of_it_and_its_station(demo):
     assert sorted(r.deployment for r in summary.results) == sorted(expect)
     assert "asked for" in summary.reruns["kc-mid-probe-2026-09"]
     # the other stations' datasets were not touched
-    changed = {p for p in _listing(demo.archive) if listing.get(p) != _listing(demo.archive)[p]}
+    now = _listing(demo.archive)
+    changed = {p for p in now if listing.get(p) != now[p]}
     assert not any(p.startswith("datasets/kc-high/") or p.startswith("datasets/kc-low/")
                    or p.startswith("datasets/kc-pier/") or p.startswith("datasets/kc-deck/") for p in changed)
     assert rerun(pipeline.load_context(demo.workspace), InProcess()).nothing_new
