@@ -76,7 +76,7 @@ _RUN_LOCKS: dict = {}      # (catalog path, run id) -> ArchiveLock held for the 
 
 
 def remove_stale_temporaries(root: Path) -> list[Path]:
-    """Delete temporary files an interrupted run left behind (``.<name>.<random>.tmp``; see store.atomic_path).
+    """Delete temporary files an interrupted run left behind (``.<name>.<random>.tmp``; see files.atomic_path).
 
     Only called under the archive lock, so no live run is writing them.
     """

@@ -210,8 +210,8 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, ve
     for var, lines in manual_notes.items():
         ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
     first = cat.dataset_versions(dep.id)
-    if first and Path(first[0]["path"]).exists():
-        ds.attrs["date_created"] = read_attrs(first[0]["path"]).get("date_created", ds.attrs["date_created"])
+    if first:      # the catalog keeps version 1's creation time, even when its file has been pruned
+        ds.attrs["date_created"] = first[0]["created"]
     if p.qc_args.get("predicted_level") is not None:
         ds["water_level_predicted"] = xr.DataArray(p.qc_args["predicted_level"], dims=("time",), attrs=dict(
             long_name=f"harmonic prediction of the water level above {p.site.vertical_datum}", units="m",

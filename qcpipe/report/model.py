@@ -9,6 +9,7 @@ reading it.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 
 from ..checks.flags import FLAG_KEYS
 
@@ -70,7 +71,7 @@ class DatasetWritten:
     """One dataset version written by the run."""
     station: str
     deployment: str
-    dataset: str
+    dataset: str | Path
     version: int
     samples: int
     flag_counts: dict                                    # variable -> {aggregate flag "1".."9": count}

@@ -133,3 +133,6 @@ def test_prune_versions_keeps_the_newest_n(ctx):
     assert [(r["version"], r["pruned"]) for r in ctx.catalog.dataset_versions(BARO)] == [(1, 1), (2, 1), (3, 0)]
     assert written[2].exists() and not written[1].exists()
     assert prune_versions(keep1, BARO) == []
+    # ACDD date_created is when the dataset was first created (version 1), even with version 1 pruned
+    from qcpipe.archive.ncio import read_attrs
+    assert read_attrs(written[2])["date_created"] == rows[0]["created"]
