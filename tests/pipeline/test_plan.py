@@ -133,6 +133,11 @@ def test_prune_versions_keeps_the_newest_n(ctx):
     assert [(r["version"], r["pruned"]) for r in ctx.catalog.dataset_versions(BARO)] == [(1, 1), (2, 1), (3, 0)]
     assert written[2].exists() and not written[1].exists()
     assert prune_versions(keep1, BARO) == []
-    # ACDD date_created is when the dataset was first created (version 1), even with version 1 pruned
+    # ACDD date_created is when the dataset was first created (version 1), also for a version written
+    # after version 1's file was pruned (a second later, so its own time would differ)
+    import time
+
     from qcpipe.archive.ncio import read_attrs
-    assert read_attrs(written[2])["date_created"] == rows[0]["created"]
+    time.sleep(1.1)
+    v4 = qc_deployment(keep1, BARO)
+    assert v4.version == 4 and read_attrs(v4.dataset)["date_created"] == rows[0]["created"]
