@@ -9,6 +9,10 @@ import numbers
 
 import numpy as np
 
+#: nanoseconds per second and per day: the one definition of the time constants
+NS = 1_000_000_000
+DAY_NS = 86400 * NS
+
 # Longest duration accepted: durations are held as int64 nanoseconds.
 _MAX_SECONDS = 100 * 366 * 86400.0
 

@@ -10,9 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .arrays import NS
 from .tide.harmonics import TideConstants, predict_tide
-
-_NS = 1_000_000_000
 
 
 @dataclass
@@ -40,7 +39,7 @@ class SiteTide:
         gt = self.gauge_time.astype("datetime64[ns]").astype(np.int64)
         out = np.interp(t, gt, self.gauge_level, left=np.nan, right=np.nan)
         i = np.clip(np.searchsorted(gt, t), 1, gt.size - 1)
-        out[(gt[i] - gt[i - 1]) > self.max_gauge_gap_s * _NS] = np.nan
+        out[(gt[i] - gt[i - 1]) > self.max_gauge_gap_s * NS] = np.nan
         return out
 
     def reference(self, times) -> tuple[np.ndarray | None, str]:

@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-NS = 1_000_000_000
+from ..arrays import NS
 
 
 def utc_from_logger_time(logger_time, *, offset_s: float) -> np.ndarray:

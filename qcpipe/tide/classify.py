@@ -15,18 +15,14 @@ References
 
 from __future__ import annotations
 
-
 import numpy as np
 
 from .. import arrays as v
-from ..arrays import UNKNOWN, series
-
+from ..arrays import NS, UNKNOWN, series
 
 #: Below this :func:`bimodality_score` a probe is "not clearly bimodal".
 BIMODALITY_CUTOFF = 0.9
 
-_NS = 1_000_000_000
-_DAY_NS = 86400 * _NS
 
 
 def _finite(readings, func: str) -> np.ndarray:
@@ -234,5 +230,5 @@ def classify_immersion(
     last[last < 0] = int(np.argmax(outside))
     raw = wet[last].astype(np.int8)
     vi = np.flatnonzero(ok)
-    state[vi] = merge_short_runs(t[vi], raw[vi], int(round(min_s * _NS)))
+    state[vi] = merge_short_runs(t[vi], raw[vi], int(round(min_s * NS)))
     return state

@@ -32,9 +32,8 @@ from typing import NamedTuple
 import numpy as np
 
 from .. import arrays as v
-from ..arrays import as_ns, check_non_decreasing
+from ..arrays import NS, as_ns, check_non_decreasing
 
-_NS = 1e9
 #: Scale factor making the median absolute deviation a consistent estimate of
 #: the standard deviation for normal data [RC1993]_.
 MAD_SCALE = 1.4826
@@ -198,7 +197,7 @@ def _nearest_offsets(obs: np.ndarray, pred: np.ndarray, max_ns: float) -> np.nda
     d_before = (obs - before).astype(np.float64)
     d_after = (obs - after).astype(np.float64)
     d = np.where(np.abs(d_before) <= np.abs(d_after), d_before, d_after)
-    return np.where(np.abs(d) <= max_ns, d / _NS, np.nan)
+    return np.where(np.abs(d) <= max_ns, d / NS, np.nan)
 
 
 def transition_offsets(
@@ -371,7 +370,7 @@ def wet_dry_lag(
     corr = np.full(lags.size, np.nan)
     block = max(1, 2_000_000 // max(o.size, 1))
     for b in range(0, lags.size, block):
-        lag_ns = lags[b:b + block, None] * _NS
+        lag_ns = lags[b:b + block, None] * NS
         p = _predicted_sign(rtf, rx, tf[None, :] - lag_ns, z)
         prod = o[None, :] * p
         n = np.count_nonzero(prod, axis=1)
@@ -380,7 +379,7 @@ def wet_dry_lag(
     if not np.isfinite(corr).any():
         return LagEstimate(lag_s=math.nan, peak=math.nan, at_limit=False)
     n_trans = np.count_nonzero(o[1:] != o[:-1])
-    span_s = (tf[-1] - tf[0]) / _NS if tf.size > 1 else 0.0
+    span_s = (tf[-1] - tf[0]) / NS if tf.size > 1 else 0.0
     slope = 2.0 * n_trans / span_s if span_s > 0 else 0.0  # dC/dL per second of lag
     return _peak_centre(lags, corr, delta=max(slope * 2 * step, 1e-9))
 

@@ -11,12 +11,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import arrays as v
-from ..arrays import series
 from qcpipe.tide.events import TideEvents, high_low_waters, tidal_day_classes
 
-_NS = 1_000_000_000
-_HOUR_NS = 3600 * _NS
+from .. import arrays as v
+from ..arrays import NS, series
+
+_HOUR_NS = 3600 * NS
 
 
 @dataclass(frozen=True)
@@ -147,7 +147,7 @@ def tidal_datums(
     tv, hv = t[ok], h[ok]
     hourly = hourly_heights(tv, hv, max_gap_ns=gap_ns)
     msl = float(hourly.mean()) if hourly.size else float("nan")
-    days = float(tv[-1] - tv[0]) / (86400 * _NS)
+    days = float(tv[-1] - tv[0]) / (86400 * NS)
     first, last = (np.datetime64(int(x), "ns").astype("datetime64[s]") for x in (tv[0], tv[-1]))
     note = (
         f"Datums from {days:.2f} days of record ({first}Z to {last}Z; {int(high.sum())} high "

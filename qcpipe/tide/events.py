@@ -18,12 +18,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import arrays as v
-from ..arrays import as_ns, series
+from ..arrays import NS, as_ns, series
 
 #: Mean lunar (tidal) day in hours, 24.8412 h [Schureman1958]_ (value from memory).
 TIDAL_DAY_H = 24.8412
 
-_NS = 1_000_000_000
 
 
 @dataclass(frozen=True)
@@ -235,7 +234,7 @@ def high_low_waters(
     t, h = t[ok], h[ok]
     if t.size < 3:
         return _empty_events()
-    ts = (t - t[0]) / _NS
+    ts = (t - t[0]) / NS
     starts, stops = segment_bounds(ts, gap)
     sid = np.repeat(np.arange(starts.size), stops - starts)
     s = centred_mean(ts, h, width, starts[sid], stops[sid])
@@ -264,7 +263,7 @@ def high_low_waters(
     hi = np.maximum(np.searchsorted(ts, ts[idx] + half, side="right"), idx + 2)
     lo, hi = np.maximum(lo, seg_lo), np.minimum(hi, seg_hi)
     t_ev, h_ev = _refine(ts, h, idx, is_high, lo, hi, s[idx])
-    t_ns = t[0] + np.round(t_ev * _NS).astype(np.int64)
+    t_ns = t[0] + np.round(t_ev * NS).astype(np.int64)
     return TideEvents(
         time=t_ns.astype("datetime64[ns]"),
         height=h_ev.astype(np.float64),
@@ -274,7 +273,7 @@ def high_low_waters(
 
 def tidal_day_index(times_ns: np.ndarray, origin_ns: int) -> np.ndarray:
     """Number of whole tidal days (24.8412 h) from `origin_ns` to each time."""
-    return np.floor((times_ns - origin_ns) / (TIDAL_DAY_H * 3600 * _NS)).astype(np.int64)
+    return np.floor((times_ns - origin_ns) / (TIDAL_DAY_H * 3600 * NS)).astype(np.int64)
 
 
 def tidal_day_classes(events: TideEvents, *, origin=None) -> np.ndarray:
@@ -313,7 +312,7 @@ def tidal_day_classes(events: TideEvents, *, origin=None) -> np.ndarray:
         return labels
     t = events.time.astype("datetime64[ns]").view(np.int64)
     if origin is None:
-        origin_ns = int(t[0]) - int(TIDAL_DAY_H * 3600 * _NS / 8)
+        origin_ns = int(t[0]) - int(TIDAL_DAY_H * 3600 * NS / 8)
     else:
         origin_ns = int(as_ns(np.atleast_1d(origin), func=func, name="origin")[0])
     day = tidal_day_index(t, origin_ns)

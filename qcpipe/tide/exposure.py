@@ -14,10 +14,7 @@ from typing import NamedTuple
 import numpy as np
 
 from .. import arrays as v
-from ..arrays import EMERSED, IMMERSED, UNKNOWN, as_ns
-
-_NS = 1_000_000_000
-_DAY_NS = 86400 * _NS
+from ..arrays import DAY_NS, EMERSED, IMMERSED, NS, UNKNOWN, as_ns
 
 
 class Transitions(NamedTuple):
@@ -59,7 +56,7 @@ def immersion_at(times_target, times_probe, state_probe, *, max_gap_s: float) ->
     tt = as_ns(times_target, func=func, name="times_target")
     tp = v.sorted_ns(times_probe, func=func, name="times_probe")
     sp = v.as_states(state_probe, func=func, n=tp.size)
-    gap_ns = int(round(v.positive(max_gap_s, func=func, name="max_gap_s", allow_zero=True) * _NS))
+    gap_ns = int(round(v.positive(max_gap_s, func=func, name="max_gap_s", allow_zero=True) * NS))
     j = np.searchsorted(tp, tt, side="right") - 1
     found = j >= 0
     jj = np.maximum(j, 0)
@@ -184,7 +181,7 @@ def exposure_periods(times, state, temperature_times=None, temperature=None) -> 
     return ExposurePeriods(
         start=start.astype("datetime64[ns]"),
         end=end.astype("datetime64[ns]"),
-        duration_s=(end - start) / _NS,
+        duration_s=(end - start) / NS,
         max_temperature=mx,
         mean_temperature=mean,
         start_observed=start_obs,
@@ -250,14 +247,14 @@ def daily_exposure(periods: ExposurePeriods, *, temperature_times=None, temperat
         raise ValueError(f"{func}: give both temperature_times and temperature, or neither")
     s = periods.start.view(np.int64)
     e = periods.end.view(np.int64)
-    d0 = s // _DAY_NS
-    d1 = np.maximum(d0, (e - 1) // _DAY_NS)
+    d0 = s // DAY_NS
+    d1 = np.maximum(d0, (e - 1) // DAY_NS)
     count = d1 - d0 + 1
     rep = np.repeat(np.arange(s.size), count)
     k = np.arange(rep.size) - np.repeat(np.cumsum(count) - count, count)
     pday = d0[rep] + k
-    ps = np.maximum(s[rep], pday * _DAY_NS)
-    pe = np.minimum(e[rep], (pday + 1) * _DAY_NS)
+    ps = np.maximum(s[rep], pday * DAY_NS)
+    pe = np.minimum(e[rep], (pday + 1) * DAY_NS)
     if days is None:
         day = np.arange(pday.min(), pday.max() + 1) if pday.size else np.zeros(0, np.int64)
     else:
@@ -267,7 +264,7 @@ def daily_exposure(periods: ExposurePeriods, *, temperature_times=None, temperat
         inside = (pos < day.size) & (day[np.minimum(pos, day.size - 1)] == pday)
     else:
         inside = np.zeros(pday.size, dtype=bool)
-    pos, hours = pos[inside], ((pe - ps) / (3600 * _NS))[inside]
+    pos, hours = pos[inside], ((pe - ps) / (3600 * NS))[inside]
     emersed = np.bincount(pos, weights=hours, minlength=day.size)
     n_em = np.bincount(pos, minlength=day.size).astype(np.int64)
     longest = np.zeros(day.size)
