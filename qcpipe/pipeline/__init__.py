@@ -1,7 +1,7 @@
 """The steps of a run, without the orchestrator: every function runs and tests without Prefect.
 
 context     the workspace's configuration and the archive's paths, loaded once
-files       new raw files, each read on its own, rejected ones quarantined
+inbox       new raw files, each read on its own, rejected ones quarantined
 store       a deployment's pre-QC store (merged downloads, UTC, raw units)
 references  a deployment's site barometer, tide reference and station immersion state
 deployment  QC of one deployment into a new dataset version, in named steps
@@ -15,7 +15,7 @@ every count lands in the run's summary (:class:`qcpipe.report.model.RunSummary`)
 from ..report.model import RunSummary
 from .context import Context, load_context
 from .deployment import DeploymentResult, prune_versions, qc_deployment, qc_station
-from .files import FileOutcome, find_new_files, group_by_deployment, quarantine_file, read_one_file
+from .inbox import FileOutcome, find_new_files, group_by_deployment, quarantine_file, read_one_file
 from .plan import QcPlan, check_deployment_ids, plan_qc, stale_deployments
 from .references import site_barometer, site_tide, station_immersion
 from .store import Store, changed_ingest, load_store, merge_new_files, rebuild_store

@@ -27,7 +27,7 @@ from ..errors import ConfigError
 from ..report.model import Notice, Quarantined, RunSummary
 from .context import Context, load_context
 from .deployment import qc_deployment, qc_station
-from .files import group_by_deployment, quarantine_file, read_one_file, find_new_files
+from .inbox import find_new_files, group_by_deployment, quarantine_file, read_one_file
 from .plan import QcPlan, check_deployment_ids, plan_qc, stale_deployments
 from .references import site_tide
 from .store import changed_ingest, merge_new_files, rebuild_store

@@ -18,7 +18,7 @@ from ..ingest import FileRejected, IngestedFile, RawFile
 from ..ingest.timebase import merge_records
 from ..report.model import Notice
 from .context import Context
-from .files import read_one_file
+from .inbox import read_one_file
 
 
 @dataclass

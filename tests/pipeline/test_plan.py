@@ -19,7 +19,7 @@ import pytest
 
 from qcpipe import pipeline
 from qcpipe.pipeline.deployment import prune_versions, qc_deployment
-from qcpipe.pipeline.files import find_new_files, group_by_deployment, read_one_file
+from qcpipe.pipeline.inbox import find_new_files, group_by_deployment, read_one_file
 from qcpipe.pipeline.plan import plan_qc
 from qcpipe.pipeline.store import merge_new_files
 from tests.conftest import REPO
