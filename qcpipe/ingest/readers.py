@@ -21,6 +21,7 @@ import codecs
 import csv
 import io
 import re
+import threading
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -32,6 +33,11 @@ from ..config.layouts import WHITESPACE, Layout, zone_of
 from ..errors import ParseError
 from ..units import same_unit
 from .fasttime import fixed_width_times
+
+#: ``warnings.catch_warnings`` changes process-wide state, so readers in parallel threads (the
+#: orchestrator's thread runner) take turns inside it; otherwise one thread's capture can miss or
+#: swallow another's parser warnings
+_WARNINGS_LOCK = threading.Lock()
 
 #: the two ways a table's times can be given
 LOGGER_CLOCK, UTC = "logger_clock", "utc"
@@ -159,7 +165,7 @@ def _parse(lines: list[str], layout: Layout, n_fields: int, name: str, line_numb
     given instead (rows of the frame are the other lines, in order).
     """
     text = "\n".join(_with_end(ln, layout) for ln in lines)
-    with warnings.catch_warnings(record=True) as caught:
+    with _WARNINGS_LOCK, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", pd.errors.ParserWarning)
         try:
             frame = pd.read_csv(io.StringIO(text), **_csv_options(layout, n_fields + 1))
@@ -196,7 +202,7 @@ def _parse(lines: list[str], layout: Layout, n_fields: int, name: str, line_numb
 
 def _names_row(line: str, layout: Layout, name: str) -> list[str]:
     text = _with_end(line, layout)
-    with warnings.catch_warnings():
+    with _WARNINGS_LOCK, warnings.catch_warnings():
         warnings.simplefilter("ignore", pd.errors.ParserWarning)
         try:
             row = pd.read_csv(io.StringIO(text), **_csv_options(layout, None)).iloc[0].tolist()

@@ -209,9 +209,11 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, ve
         add_air_pressure(ds, enc, conv.air_pressure, conv.air_pressure_source)
     for var, lines in manual_notes.items():
         ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
+    # one time for the dataset and its catalog row; date_created is version 1's, which the catalog
+    # keeps even when that version's file has been pruned
     first = cat.dataset_versions(dep.id)
-    if first:      # the catalog keeps version 1's creation time, even when its file has been pruned
-        ds.attrs["date_created"] = first[0]["created"]
+    ds.attrs["date_modified"] = now
+    ds.attrs["date_created"] = first[0]["created"] if first else now
     if p.qc_args.get("predicted_level") is not None:
         ds["water_level_predicted"] = xr.DataArray(p.qc_args["predicted_level"], dims=("time",), attrs=dict(
             long_name=f"harmonic prediction of the water level above {p.site.vertical_datum}", units="m",
