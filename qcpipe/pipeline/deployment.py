@@ -67,10 +67,9 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
     p = convert(ctx, deployment_id, store or load_store(ctx, deployment_id), new_files)
     attach_immersion(ctx, p, tide)
     flags, manual_notes = apply_rules(ctx, p)
-    version = _next_version(ctx, p.dep.id)
-    out_path = ctx.paths.dataset(p.station.id, p.dep.id, version)
     now = utc_now()
-    ds, enc = build_dataset(ctx, p, flags, manual_notes, version, now)
+    ds, enc, version = build_dataset(ctx, p, flags, manual_notes, now)
+    out_path = ctx.paths.dataset(p.station.id, p.dep.id, version)
     write_dataset_atomic(ds, out_path, enc)
     products = derived.write_products(ctx, p.station, p.site, p.dep, p.store.kind, p.store.time, p.conv, flags,
                                       version, tide=tide) if p.store.kind == "pressure" else []
@@ -173,16 +172,13 @@ def apply_rules(ctx: Context, p: Prepared) -> tuple[dict, dict]:
     return flags, notes
 
 
-def _next_version(ctx: Context, deployment_id: str) -> int:
-    prev = ctx.catalog.latest_dataset(deployment_id)
-    return 1 if prev is None else prev["version"] + 1
-
-
-def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, version: int, now: str):
-    """Step 4: the CF/ACDD dataset with its history and provenance, and its NetCDF encoding."""
+def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, now: str):
+    """Step 4: the CF/ACDD dataset (the next version after the catalog's latest) with its history and
+    provenance; returns it, its NetCDF encoding and its version number."""
     reg, dep, store, conv, counts = ctx.register, p.dep, p.store, p.conv, p.store.counts
     cat = ctx.catalog
     prev = cat.latest_dataset(dep.id)
+    version = 1 if prev is None else prev["version"] + 1
     history = (f"{now} qcpipe {__version__}: {len(store.sources)} raw file(s) merged ({counts.get('duplicates', 0)} "
                f"repeated records dropped, {counts.get('conflicts', 0)} conflicts kept and flagged), converted, QC "
                f"with rule set {ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
@@ -220,7 +216,7 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, ve
             coordinates=ds["water_level"].attrs["coordinates"], comment="for the tide residual check; "
             "not for navigation or safety planning"))
         enc["water_level_predicted"] = dict(enc["water_level"])
-    return ds, enc
+    return ds, enc, version
 
 
 def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, now: str, fc: dict,
