@@ -69,13 +69,29 @@ def barometers_for(register, deployment_id: str) -> list[str]:
                   and register.station_by_id(d.station).site == site and d.start < dep.end and d.end > dep.start)
 
 
+def site_gauges(register, site_id: str) -> list[str]:
+    """The water-level (pressure logger) deployments at a site: its observed tide record (sorted ids)."""
+    return sorted(d.id for d in register.deployment
+                  if register.station_by_id(d.station).site == site_id and register.kind_of(d.id) == "pressure")
+
+
+def site_gauge_datasets(ctx, site_id: str) -> dict:
+    """What made the latest dataset of each gauge deployment at a site (QC key and raw files, as catalogued):
+    the identity of the site's observed tide record and of any constants fitted to it."""
+    latest = {g: ctx.catalog.latest_dataset(g) or {} for g in site_gauges(ctx.register, site_id)}
+    return {g: {"qc_key": row.get("qc_key"), "raw_sha256": row.get("raw_sha256")} for g, row in latest.items() if row}
+
+
 def qc_inputs(ctx, deployment_id: str) -> dict:
     """Everything besides the store that decides a deployment's QC'd dataset.
 
     A level logger that subtracts a barometer's air pressure depends on what
     made that barometer's latest dataset (its QC key and raw files, as the
     catalog recorded them; not the file's own hash, which carries the run's
-    timestamps): a new barometer record re-QCs the level logger.
+    timestamps): a new barometer record re-QCs the level logger.  Likewise every
+    other instrument at a site depends on the site's gauge datasets (its tide
+    reference: the observed level, and constants fitted to it where the register
+    names none).
     """
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
@@ -89,6 +105,9 @@ def qc_inputs(ctx, deployment_id: str) -> dict:
         latest = {b: ctx.catalog.latest_dataset(b) or {} for b in baro}
         extra["barometer_datasets"] = {b: {"qc_key": row.get("qc_key"), "raw_sha256": row.get("raw_sha256")}
                                        for b, row in latest.items()}
+    if inst.kind not in ("pressure", "barometer"):
+        # the site's tide reference: its observed gauge record and any constants fitted to it
+        extra["site_gauge_datasets"] = site_gauge_datasets(ctx, site.id)
     return {**extra,
         "rules": rules,
         "rule_settings": {"immersion": _dump(ctx.rules.immersion), "tide_timing": _dump(ctx.rules.tide_timing)},

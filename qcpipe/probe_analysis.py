@@ -38,6 +38,8 @@ class ProbeAnalysis:
     transition_time: np.ndarray | None = None      # observed transitions (UTC), floods then drains
     transition_kind: np.ndarray | None = None      # 1 flooding, 0 draining
     transition_offset_s: np.ndarray | None = None  # observed minus predicted, NaN if unmatched
+    reference_level: np.ndarray | None = None      # the tide reference at the samples (NaN where none)
+    reference_source: np.ndarray | None = None     # its per-sample source (tide_reference.SOURCE_MEANINGS)
 
 
 def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settings: ImmersionSettings,
@@ -55,7 +57,9 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
        midpoint (``reference_tolerance`` of their distance).
     4. Hysteresis of ``hysteresis_fraction`` of the class distance and a minimum
        state duration stop chattering.
-    5. With a harmonic prediction: transition timing gives a clock verdict; the
+    5. With a tide reference (the observed gauge level where it has data, else
+       the prediction; :class:`qcpipe.tide_reference.SiteTide`) for more than 10
+       classified samples: transition timing against it gives a clock verdict; the
        level at the (clock-corrected) transitions gives the effective elevation,
        compared with the surveyed one.  A suspected clock error or an elevation
        beyond tolerance makes the immersion series suspect.
@@ -101,34 +105,39 @@ def analyse_probe(times, reading, *, probe_reference, elevation_m: float, settin
                  immersion_hysteresis=float(settings.hysteresis_fraction * abs(hi - lo)),
                  immersion_min_state_s=float(settings.min_state))
     result = ProbeAnalysis(state, wetness, quality, float(thr), source, float(score), findings, attrs)
-    pred = tide.predicted(t) if tide is not None else None
-    if pred is not None and np.count_nonzero(state != 2) > 10:
-        verdict = clock_error_estimate(t, state, t, pred, elevation_m=elevation_m,
-                                              max_lag_s=timing_rules.max_offset,
-                                              threshold_s=timing_rules.clock_error_threshold)
+    ref_level, ref_source = tide.level_and_source(t) if tide is not None else (None, None)
+    result.reference_level, result.reference_source = ref_level, ref_source
+    covered = np.isfinite(ref_level) if ref_level is not None else np.zeros(t.size, bool)
+    if np.count_nonzero(covered & (state != 2)) > 10:
+        # timing against the reference where it has a level (observed gauge, else prediction)
+        timed = np.where(covered, state, 2).astype(np.int8)
+        rt, rl = t[covered], ref_level[covered]
+        verdict = clock_error_estimate(t, timed, rt, rl, elevation_m=elevation_m,
+                                       max_lag_s=timing_rules.max_offset,
+                                       threshold_s=timing_rules.clock_error_threshold)
         result.clock = verdict
         attrs.update(clock_transition_offset_s=_round(verdict.offset_s), clock_offset_spread_s=_round(verdict.spread_s),
-                     clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected))
+                     clock_xcorr_lag_s=_round(verdict.lag_xcorr_s), clock_error_suspected=int(verdict.suspected),
+                     clock_reference=tide.describe(ref_source[covered]))
         if verdict.suspected:
             quality[ok] = np.maximum(quality[ok], SUSPECT)
         shift = np.timedelta64(int(round(verdict.offset_s * 1e9)), "ns") if verdict.suspected else np.timedelta64(0, "ns")
-        obs = observed_transitions(t, state)
-        pc = predicted_crossings(t, pred, elevation_m=elevation_m)
+        obs = observed_transitions(t, timed)
+        pc = predicted_crossings(rt, rl, elevation_m=elevation_m)
         offs = transition_offsets(obs.flooding, obs.draining, pc.flooding, pc.draining,
-                                         max_offset_s=timing_rules.max_offset)
+                                  max_offset_s=timing_rules.max_offset)
         tt = np.concatenate((obs.flooding, obs.draining))
         order = np.argsort(tt, kind="stable")
         result.transition_time = tt[order]
         result.transition_kind = np.concatenate((np.ones(obs.flooding.size, np.int8),
                                                  np.zeros(obs.draining.size, np.int8)))[order]
         result.transition_offset_s = np.concatenate((offs.flood_offsets_s, offs.drain_offsets_s))[order]
-        ref_level, ref_source = tide.reference(t)
-        eff = effective_elevation(obs.flooding - shift, obs.draining - shift, t, ref_level)
+        eff = effective_elevation(obs.flooding - shift, obs.draining - shift, rt, rl)
         if eff.n >= 4:
             check = elevation_check(eff, elevation_m, tolerance_m=timing_rules.elevation_tolerance_m)
             result.elevation = check
             attrs.update(effective_elevation_m=_round(eff.median_m, 3), effective_elevation_spread_m=_round(eff.spread_m, 3),
-                         effective_elevation_reference=ref_source)
+                         effective_elevation_reference=tide.describe(ref_source[covered]))
             if check.suspect:
                 quality[ok] = np.maximum(quality[ok], SUSPECT)
     return result

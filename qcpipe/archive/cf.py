@@ -224,6 +224,20 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     return ds, encoding
 
 
+def add_source_variable(ds: xr.Dataset, encoding: dict, name: str, codes, *, long_name: str, meanings: str,
+                        of: str) -> None:
+    """A per-sample int8 variable saying where another variable (``of``) came from, listed in its
+    ``ancillary_variables``; ``meanings`` are the flag meanings of codes 0, 1, 2, ..."""
+    n = len(meanings.split())
+    ds[name] = xr.DataArray(np.asarray(codes, np.int8), dims=("time",), attrs=dict(
+        long_name=long_name, coordinates=ds[of].attrs.get("coordinates", "time"),
+        flag_values=np.arange(n, dtype=np.int8), flag_meanings=meanings))
+    encoding[name] = dict(dtype="int8", _FillValue=None, zlib=True, complevel=4,
+                          chunksizes=encoding[of]["chunksizes"])
+    anc = ds[of].attrs.get("ancillary_variables", "")
+    ds[of].attrs["ancillary_variables"] = f"{anc} {name}".strip()
+
+
 def add_air_pressure(ds: xr.Dataset, encoding: dict, air_pressure_pa, source=None) -> None:
     """The air pressure a level logger's water level subtracted at each sample, and where it came from.
 

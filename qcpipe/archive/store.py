@@ -9,6 +9,7 @@ Layout of an archive folder (all names are ours)::
     datasets/<station>/qcpipe_<station>_<deployment>_v<NNN>.nc   QC'd, CF/ACDD, versioned
     conflicts/<deployment>.csv                       records whose values disagree between downloads
     derived/<station>/...                            tide events, datums, fitted constants, exposure
+    sites/<site>/fitted_constituents.toml (+ .json)  constants fitted to all the site's gauge records
     .prefect/                                        the orchestrator's own state
 """
 
@@ -74,6 +75,10 @@ class ArchivePaths:
     def derived(self, station: str, name: str) -> Path:
         check_safe_id(station, "station id")
         return self._inside(self.root / "derived" / station / safe_file_name(name))
+
+    def site_product(self, site: str, name: str) -> Path:
+        check_safe_id(site, "site id")
+        return self._inside(self.root / "sites" / site / safe_file_name(name))
 
     def conflicts(self, deployment: str) -> Path:
         check_safe_id(deployment, "deployment id")

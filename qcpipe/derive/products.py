@@ -5,7 +5,11 @@
   record, and the harmonic constants fitted to it (a constants file the
   predictor reads);
 * per station with an immersion probe: emersion periods and a daily exposure
-  summary (with aerial temperature from the station's temperature logger).
+  summary (with aerial temperature from the station's temperature logger);
+* per site without harmonic constants in the register: constants fitted to all
+  its gauge records (``sites/<site>/fitted_constituents.toml``, with a JSON
+  record of what they were fitted to), read back while those records are
+  unchanged and fitted again when new gauge data arrive.
 
 Files: ``derived/<station>/qcpipe_<station>_<deployment>_v<NNN>_<product>.{nc,csv}``
 (named after the dataset they were computed from).
@@ -15,13 +19,16 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 from pathlib import Path
 
 import numpy as np
 import xarray as xr
 
 from .. import __version__
-from ..config.constituents import write_constituents
+
+from ..config.constituents import load_constituents, write_constituents
+from ..config.loading import content_sha256
 from ..files import write_text_atomic
 from ..tide.analysis import fit_constituents
 from ..tide.datums import tidal_datums
@@ -143,6 +150,44 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
                                             f"({record_days:.1f} days)")
         written.append(write_constituents(base.with_name(base.name + "_constituents.toml"), constants))
     return written
+
+
+def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: float | None):
+    """Constants fitted to all of a site's gauge records: (constants or None, what they come from, why not).
+
+    ``times``/``levels`` are the gauges' latest valid samples merged; ``gauges`` is
+    what made each gauge's latest dataset (:func:`qcpipe.lineage.site_gauge_datasets`),
+    whose hash keys the fit: while it is unchanged the written constants are read
+    back, otherwise they are fitted again (:func:`qcpipe.tide.analysis.fit_constituents`,
+    at least 15 days of record) and written with a JSON record of the fit: the
+    gauges, the span, the record length and the constituents resolved and dropped.
+    """
+    toml = ctx.paths.site_product(site.id, "fitted_constituents.toml")
+    record = toml.with_suffix(".json")
+    key = content_sha256(gauges)
+    if toml.exists() and record.exists():
+        meta = json.loads(record.read_text("utf-8"))
+        if meta.get("inputs_sha256") == key:
+            return load_constituents(toml), meta["described"], ""
+    t = np.asarray(times, dtype="datetime64[ns]")
+    if t.size < 2:
+        return None, "", "the site has no gauge record to fit harmonic constants to"
+    days = float((t.max() - t.min()).astype("timedelta64[s]").astype(np.int64)) / 86400.0
+    try:
+        fit = fit_constituents(t, levels, latitude=latitude)
+    except ValueError as err:
+        return None, "", f"its gauge record ({days:.1f} days) is too short to fit harmonic constants to: {err}"
+    described = (f"fitted by qcpipe {__version__} to {fit.n_samples} samples of gauge deployment(s) "
+                 f"{', '.join(sorted(gauges))}, {_iso(fit.start)} to {_iso(fit.end)} ({fit.record_days:.1f} days)")
+    constants = fit.to_constants(site=site.name, datum=site.vertical_datum, source=described)
+    write_constituents(toml, constants)
+    meta = {"inputs_sha256": key, "described": described, "gauge_datasets": gauges,
+            "start": _iso(fit.start), "end": _iso(fit.end), "record_days": round(fit.record_days, 3),
+            "samples": fit.n_samples, "residual_std_m": round(float(fit.residual_std_m), 4),
+            "resolved": [c.name for c in fit.constants], "dropped": dict(fit.dropped),
+            "inferred": dict(getattr(fit, "inferred", {}) or {})}
+    write_text_atomic(record, json.dumps(meta, indent=1, sort_keys=True) + "\n")
+    return constants, described, ""
 
 
 def write_exposure_products(ctx, station) -> list[Path]:

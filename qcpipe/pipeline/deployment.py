@@ -11,7 +11,7 @@ import xarray as xr
 
 from .. import __version__, lineage, progress
 from ..archive.catalog import utc_now
-from ..archive.cf import add_air_pressure, build_cf_dataset
+from ..archive.cf import add_air_pressure, add_source_variable, build_cf_dataset
 from ..archive.ncio import read_attrs, write_dataset_atomic
 from ..checks import barometer_fallback_flags
 from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
@@ -19,10 +19,11 @@ from ..derive import products as derived
 from ..files import copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
 from ..apply_rules import apply_rule_set, flag_counts
-from ..report.words import clock_verdict_text, elevation_text, probe_finding_text
+from ..report.words import clock_verdict_text, elevation_text, no_reference_text, probe_finding_text
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
-from ..tide_reference import SiteTide
+from ..tide_reference import (IMMERSION_PROBE, IMMERSION_SOURCE_MEANINGS, IMMERSION_UNKNOWN, SOURCE_MEANINGS,
+                              SiteTide)
 from .context import Context
 from .references import site_barometer, station_immersion
 from .store import COUNT_KEYS, Store, load_store
@@ -46,6 +47,7 @@ class Prepared:
     tide_attrs: dict = field(default_factory=dict)
     notices: list = field(default_factory=list)    # Notice records
     analysis: object = None                        # probe_analysis.ProbeAnalysis of an immersion probe
+    sources: dict = field(default_factory=dict)    # per-sample source variables: immersion_source, tide_reference_source
     qc_key: str = ""                               # lineage: what this dataset is made from
     qc_inputs: dict = field(default_factory=dict)
 
@@ -114,8 +116,17 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
         p.tide_attrs.update(analysis.attrs)
         if analysis.clock is not None:
             p.tide_attrs["clock_verdict"] = clock_verdict_text(analysis.clock)
-        ref_level, ref_source = tide.reference(store.time) if tide is not None else (None, "none")
-        p.tide_attrs["immersion_reference_level"] = ref_source
+        ref_level, ref_source = analysis.reference_level, analysis.reference_source
+        if ref_source is None or not np.any(np.isfinite(ref_level)):
+            ref_level = None
+            why = tide.why_no_fit if tide is not None and tide.why_no_fit else "the site has no tide reference"
+            p.tide_attrs["immersion_reference_level"] = f"none: {why}"
+            p.notices.append(Notice("tide", no_reference_text(why), station.id, p.dep.id))
+        else:
+            p.tide_attrs["immersion_reference_level"] = tide.describe(ref_source)
+            p.sources["tide_reference_source"] = ref_source
+        p.sources["immersion_source"] = np.where(analysis.state == 2, IMMERSION_UNKNOWN,
+                                                 IMMERSION_PROBE).astype(np.int8)
         p.analysis = analysis
         p.qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
                          readings=store.values["probe_reading"],
@@ -123,12 +134,14 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
     elif store.kind == "barometer":
         p.tide_attrs["immersion_source"] = "none (a barometer measures air pressure; immersion does not apply)"
     else:
-        state, source = station_immersion(ctx, station, store.time, tide)
+        state, source, what = station_immersion(ctx, station, store.time, tide)
         conv.immersion = state
-        p.tide_attrs["immersion_source"] = source
+        p.tide_attrs["immersion_source"] = what
+        p.sources["immersion_source"] = source
         p.qc_args = dict(immersion=state)
         if store.kind == "pressure" and tide is not None:
-            p.qc_args["predicted_level"] = tide.predicted(store.time)
+            # a gauge is checked against the register's constants only, never against constants fitted to itself
+            p.qc_args["predicted_level"] = tide.register_predicted(store.time)
     if conv.barometer_used:
         p.qc_args["extra"] = {"water_level": {"barometer_fallback": barometer_fallback_flags(
             conv.variables["water_level"], conv.air_pressure_source == AIR_FROM_CONSTANT)}}
@@ -201,6 +214,14 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
                                provenance=provenance, version=version, history=history, raw_units=store.units)
     if p.analysis is not None and p.analysis.transition_time is not None:
         _add_transitions(ds, enc, p.analysis)
+    if "immersion_source" in p.sources and "immersion" in ds:
+        add_source_variable(ds, enc, "immersion_source", p.sources["immersion_source"], of="immersion",
+                            long_name="source of the immersion state at each sample",
+                            meanings=IMMERSION_SOURCE_MEANINGS)
+    if "tide_reference_source" in p.sources:
+        add_source_variable(ds, enc, "tide_reference_source", p.sources["tide_reference_source"], of="wetness",
+                            long_name="source of the reference water level the probe was checked against",
+                            meanings=SOURCE_MEANINGS)
     if conv.air_pressure is not None:
         add_air_pressure(ds, enc, conv.air_pressure, conv.air_pressure_source)
     for var, lines in manual_notes.items():

@@ -23,8 +23,8 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     """Which deployments a run must QC, given those that received new data.
 
     A new barometer record changes the air pressure of the level loggers at its
-    site; a new gauge record changes the reference level of every probe at its
-    site; a new probe record changes the immersion state of every instrument at
+    site; a new gauge record changes the tide reference (observed level, and
+    constants fitted to it) of every other instrument at its site; a new probe record changes the immersion state of every instrument at
     its station: their datasets are re-QC'd from the stored pre-QC level.
     """
     reg = ctx.register
@@ -34,7 +34,8 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     barometers = sorted(d for d in todo if ctx.register.kind_of(d) == "barometer")
     todo |= {d for d in have_store if set(lineage.barometers_for(reg, d)) & set(barometers)}
     new_gauge_sites = {site_of[d] for d in todo if ctx.register.kind_of(d) == "pressure"}
-    todo |= {d for d in have_store if ctx.register.kind_of(d) == "immersion_probe" and site_of[d] in new_gauge_sites}
+    todo |= {d for d in have_store if ctx.register.kind_of(d) not in ("pressure", "barometer")
+             and site_of[d] in new_gauge_sites}
     new_probe_stations = {reg.deployment_by_id(d).station for d in todo if ctx.register.kind_of(d) == "immersion_probe"}
     todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}
     order = {"pressure": 0, "immersion_probe": 1}

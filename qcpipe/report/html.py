@@ -344,7 +344,7 @@ def _station_page_name(station: str) -> str:
 # --- what needs attention ----------------------------------------------------------------
 
 #: css class of each notice kind in the "Needs attention" list (colour of its left border)
-_KIND_CLASS = {"clock": "clock", "fouling": "probe", "elevation": "probe", "quarantine": "quarantine",
+_KIND_CLASS = {"clock": "clock", "fouling": "probe", "elevation": "probe", "tide": "probe", "quarantine": "quarantine",
                "failures": "fail"}
 
 
@@ -721,6 +721,10 @@ def _dataset_section(archive: _Archive, station: str, row: dict, in_run: dict, o
                           _muted(f"sha256 {str(attrs.get('qc_rule_set_sha256', ''))[:12]}")]],
             ["raw files", _text(attrs.get("raw_file_names", ""))],
             ["dataset", [_link(Path(row["local_path"]).name, _href(row["local_path"], out_dir)), note]]]
+    if attrs.get("immersion_reference_level"):
+        info.append(["tide reference (checked against)", _text(attrs["immersion_reference_level"])])
+    if attrs.get("immersion_source") and "immersion" in ds.data_vars:
+        info.append(["immersion state from", _text(attrs["immersion_source"])])
     imm = ds["immersion"].values if "immersion" in ds.data_vars else None
     figures = []
     for var in _qc_variables(ds):

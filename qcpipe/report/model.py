@@ -18,6 +18,7 @@ NOTICE_KINDS = {
     "clock": "Clock looks wrong",
     "fouling": "Probe readings",
     "elevation": "Sensor height",
+    "tide": "No tide reference",
     "quarantine": "File quarantined",
     "conflict": "Downloads disagree",
     "failures": "Failed samples",

@@ -61,3 +61,10 @@ def probe_finding_text(finding: str, figures: dict) -> str:
                 f"midpoint {figures['midpoint']:.4g} by more than {figures['tolerance']:.0%} of their distance; "
                 "check the references or the probe")
     raise ValueError(f"unknown probe finding {finding!r}")
+
+
+def no_reference_text(why: str) -> str:
+    """A probe checked against no tide: which checks did not run, and why."""
+    return (f"no tide reference: {why}; the probe's clock check, sensor-height check and tide-consistency check "
+            "did not run (name published harmonic constants in the register, or add a water-level logger with "
+            "at least 15 days of record)")
