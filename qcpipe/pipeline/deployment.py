@@ -22,10 +22,10 @@ from ..apply_rules import apply_rule_set, flag_counts
 from ..report.words import clock_verdict_text, elevation_text, no_reference_text, probe_finding_text
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
-from ..tide_reference import (IMMERSION_PROBE, IMMERSION_SOURCE_MEANINGS, IMMERSION_UNKNOWN, SOURCE_MEANINGS,
-                              SiteTide)
+from ..tide_reference import (IMMERSION_PROBE, IMMERSION_SOURCE_MEANINGS, IMMERSION_UNKNOWN, OBSERVED_GAUGE,
+                              SOURCE_MEANINGS, SiteTide, immersion_source_from_reference, state_from_level)
 from .context import Context
-from .references import site_barometer, station_immersion
+from .references import site_barometer, station_immersion, swash_margin
 from .store import COUNT_KEYS, Store, load_store
 
 
@@ -133,15 +133,25 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
                          extra={"wetness": {"immersion_quality": analysis.quality}})
     elif store.kind == "barometer":
         p.tide_attrs["immersion_source"] = "none (a barometer measures air pressure; immersion does not apply)"
+    elif store.kind == "pressure":
+        # a water-level logger knows its own immersion: its level against its own elevation
+        state = state_from_level(store.time, conv.variables["water_level"], elevation_m=station.elevation_m,
+                                 margin_m=swash_margin(ctx, station.id))
+        conv.immersion = state
+        p.tide_attrs["immersion_source"] = ("the logger's own water level against its elevation (unknown within "
+                                            f"{swash_margin(ctx, station.id):g} m of it)")
+        p.sources["immersion_source"] = np.where(state == 2, IMMERSION_UNKNOWN,
+                                                 immersion_source_from_reference(OBSERVED_GAUGE)).astype(np.int8)
+        p.qc_args = dict(immersion=state)
+        if tide is not None:
+            # a gauge is checked against the register's constants only, never against constants fitted to itself
+            p.qc_args["predicted_level"] = tide.register_predicted(store.time)
     else:
         state, source, what = station_immersion(ctx, station, store.time, tide)
         conv.immersion = state
         p.tide_attrs["immersion_source"] = what
         p.sources["immersion_source"] = source
         p.qc_args = dict(immersion=state)
-        if store.kind == "pressure" and tide is not None:
-            # a gauge is checked against the register's constants only, never against constants fitted to itself
-            p.qc_args["predicted_level"] = tide.register_predicted(store.time)
     if conv.barometer_used:
         p.qc_args["extra"] = {"water_level": {"barometer_fallback": barometer_fallback_flags(
             conv.variables["water_level"], conv.air_pressure_source == AIR_FROM_CONSTANT)}}
