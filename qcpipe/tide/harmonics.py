@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constituents import ARGUMENT_RATES, CONSTITUENTS, constituent, nodal_corrections
+from .constituents import CONSTITUENTS, constituent, nodal_corrections
 
 #: Greenwich mean noon, 1899 December 31: origin of Schureman's polynomials
 EPOCH = np.datetime64("1899-12-31T12:00:00", "us")
@@ -188,7 +188,7 @@ def day_blocks(names: list[str], days: np.ndarray) -> _Blocks:
     ref = np.round(days)                 # days count from noon: round() gives that day's noon
     uniq, index = np.unique(ref, return_inverse=True)
     V, u, f = _arguments_at_days(names, uniq)
-    speeds = np.array([np.dot(CONSTITUENTS[n].doodson, ARGUMENT_RATES) for n in names])
+    speeds = np.array([CONSTITUENTS[n].speed_deg_per_hour for n in names])
     return _Blocks(index.reshape(-1), (days - ref) * 24.0, np.deg2rad(V + u), f, np.deg2rad(speeds))
 
 
