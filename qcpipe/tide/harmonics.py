@@ -72,8 +72,27 @@ class HarmonicConstant:
 
 
 @dataclass(frozen=True)
+class Inference:
+    """How an inferred constituent was set: its amplitude is ``amplitude_ratio`` times
+    that of ``reference`` and its Greenwich phase lag that of ``reference`` plus
+    ``phase_difference_deg`` (degrees)."""
+
+    reference: str
+    amplitude_ratio: float
+    phase_difference_deg: float = 0.0
+
+
+@dataclass(frozen=True)
 class TideConstants:
-    """Harmonic constants of a site (file format: :mod:`qcpipe.config.constituents`)."""
+    """Harmonic constants of a site (file format: :mod:`qcpipe.config.constituents`).
+
+    The fit metadata are optional (None: not known, as for published constants):
+    ``record_days`` the length of the record fitted (days, first to last valid
+    sample); ``resolved`` the constituents fitted on their own; ``inferred`` the
+    constituents set from a resolved one (name -> :class:`Inference`; also in
+    ``constituents``); ``dropped`` those left out, name -> the constituent (or
+    ``"Z0"``, the mean level) the record could not separate them from.
+    """
 
     site: str
     datum: str
@@ -82,6 +101,10 @@ class TideConstants:
     source: str = ""
     epoch_note: str = "Greenwich phase lags, UTC"
     latitude_deg: float | None = None
+    record_days: float | None = None
+    resolved: tuple[str, ...] | None = None
+    inferred: dict[str, Inference] | None = None
+    dropped: dict[str, str] | None = None
 
 
 def days_from_epoch(times) -> np.ndarray:

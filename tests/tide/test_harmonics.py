@@ -239,3 +239,27 @@ def test_m1_nodal_factor_range_matches_the_published_formula():
     assert ratio.min() == pytest.approx(lo, abs=0.04)
     assert ratio.max() == pytest.approx(hi, abs=0.04)
     assert np.all((ratio > lo - 0.04) & (ratio < hi + 0.04))
+
+
+def test_prediction_matches_utide_reconstruct_over_four_years():
+    # utide.reconstruct (Foreman's satellite nodal corrections, its own astronomy)
+    # with the same constants for the six major constituents, hourly over 4 years:
+    # RMS difference under 3 mm (issue 13). utide needs a fit's structure to
+    # reconstruct from: solve on our prediction, then put the constants in it.
+    import utide
+
+    six = {k: MAJOR8[k] for k in ("M2", "S2", "N2", "K2", "K1", "O1")}
+    t_fit = _year_hourly(2026)
+    coef = utide.solve(t_fit, predict_tide(t_fit, six, mean_level=2.0), lat=48.0, method="ols",
+                       conf_int="none", nodal=True, trend=False, constit=list(six), verbose=False)
+    coef["A"] = np.array([six[n][0] for n in coef["name"]])
+    coef["g"] = np.array([six[n][1] for n in coef["name"]])
+    coef["mean"] = 2.0
+    t = np.arange(np.datetime64("2024-01-01T00:00"), np.datetime64("2028-01-01T00:00"), np.timedelta64(1, "h"))
+    theirs = utide.reconstruct(t, coef, verbose=False).h
+    ours = predict_tide(t, six, mean_level=2.0)
+    rms = float(np.sqrt(np.mean((ours - theirs) ** 2)))
+    assert rms < 0.003
+    # and the comparison can fail: a 2-degree phase error in M2 alone is 30 mm RMS
+    shifted = predict_tide(t, {**six, "M2": (1.20, 125.0)}, mean_level=2.0)
+    assert float(np.sqrt(np.mean((shifted - theirs) ** 2))) > 0.01
