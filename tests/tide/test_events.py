@@ -278,8 +278,8 @@ def test_mixed_tide_pairs_closer_than_four_hours_are_kept():
 def test_broad_diurnal_crest_times_within_a_minute():
     # Purely diurnal tide at neap (K1 and O1 nearly opposed; the crests are
     # broad and asymmetric), 15-min sampling rounded to 1 mm as a gauge reports
-    # it: crest times within 1 min of the derivative roots (the old 1-h parabola
-    # was up to tens of minutes off on such crests)
+    # it: crest times within 1 min of the derivative roots (the former parabola
+    # over 1 h missed three of 63 crests here by more than that)
     from tests.tide.brute_tide import brute_events, constituents_for_form_factor, level
 
     amps = constituents_for_form_factor(float("inf"))
