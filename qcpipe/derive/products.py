@@ -160,7 +160,7 @@ def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: f
     whose hash keys the fit: while it is unchanged the written constants are read
     back, otherwise they are fitted again (:func:`qcpipe.tide.analysis.fit_constituents`,
     at least 15 days of record) and written with a JSON record of the fit: the
-    gauges, the span, the record length and the constituents resolved and dropped.
+    gauges, the span, the record length and the constituents resolved, inferred and dropped.
     """
     toml = ctx.paths.site_product(site.id, "fitted_constituents.toml")
     record = toml.with_suffix(".json")
@@ -184,8 +184,10 @@ def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: f
     meta = {"inputs_sha256": key, "described": described, "gauge_datasets": gauges,
             "start": _iso(fit.start), "end": _iso(fit.end), "record_days": round(fit.record_days, 3),
             "samples": fit.n_samples, "residual_std_m": round(float(fit.residual_std_m), 4),
-            "resolved": [c.name for c in fit.constants], "dropped": dict(fit.dropped),
-            "inferred": dict(getattr(fit, "inferred", {}) or {})}
+            "resolved": list(fit.resolved), "dropped": dict(fit.dropped),
+            "inferred": {name: {"from": i.reference, "amplitude_ratio": round(float(i.amplitude_ratio), 6),
+                                "phase_difference_deg": float(i.phase_difference_deg)}
+                         for name, i in fit.inferred.items()}}
     write_text_atomic(record, json.dumps(meta, indent=1, sort_keys=True) + "\n")
     return constants, described, ""
 

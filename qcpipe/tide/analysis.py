@@ -12,6 +12,16 @@ so that :math:`H_i = \\sqrt{a_i^2 + b_i^2}` and the Greenwich phase lag
 :func:`qcpipe.tide.predict_tide` ([Schureman1958]_ for ``V, f, u``; the
 least-squares form as in [Foreman1977]_).  ``V + u`` and ``f`` are those of
 :func:`qcpipe.tide.equilibrium_arguments` (per UTC day).
+
+Inference ([Foreman1977]_): a constituent that the record cannot separate from
+its reference (the Rayleigh criterion) is carried in the reference's columns at
+a fixed amplitude ratio r and phase difference d, so that the model holds
+:math:`f_i a_i [\\cos(V_i + u_i) + r (f_j / f_i) \\cos(V_j + u_j - d)] + \\ldots`
+and the inferred constants are :math:`H_j = r H_i`, :math:`g_j = g_i + d`.
+Default pairs (:data:`EQUILIBRIUM_INFERENCE`): K2 from S2, P1 from K1, N2 from
+M2 and Q1 from O1, at the ratio of their equilibrium amplitudes ([CT1971]_) and
+no phase difference (equilibrium: the same Greenwich lag in Schureman's
+arguments, whose constant phases make every equilibrium coefficient positive).
 """
 
 from __future__ import annotations
@@ -23,10 +33,21 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .constituents import CONSTITUENTS, PRIORITY, constituent
-from .harmonics import HarmonicConstant, TideConstants, day_blocks, days_from_epoch
+from .harmonics import HarmonicConstant, Inference, TideConstants, day_blocks, days_from_epoch
 
 _CHUNK = 32_768
 _PRIORITY_RANK = {name: i for i, name in enumerate(PRIORITY)}
+
+#: Equilibrium amplitudes of the tide-generating potential, m ([CT1971]_, from memory).
+EQUILIBRIUM_AMPLITUDE_M = {"M2": 0.63192, "S2": 0.29400, "N2": 0.12099, "K2": 0.07996,
+                           "K1": 0.36878, "O1": 0.26221, "P1": 0.12203, "Q1": 0.05020}
+
+#: Default inference: inferred constituent -> its reference, the equilibrium amplitude
+#: ratio (K2/S2 0.272, P1/K1 0.331, N2/M2 0.191, Q1/O1 0.191) and no phase difference.
+EQUILIBRIUM_INFERENCE: dict[str, Inference] = {
+    name: Inference(ref, EQUILIBRIUM_AMPLITUDE_M[name] / EQUILIBRIUM_AMPLITUDE_M[ref], 0.0)
+    for name, ref in (("K2", "S2"), ("P1", "K1"), ("N2", "M2"), ("Q1", "O1"))
+}
 
 
 class RayleighWarning(UserWarning):
@@ -86,6 +107,13 @@ class TideFit:
     Standard errors come from the residual variance and the covariance of the
     normal equations, ``cov = s^2 (X^T X)^-1``, which assumes white (uncorrelated)
     residuals; with a red residual (surges, seiches) they are too small.
+
+    ``record_days``: first to last valid sample, days. ``resolved``: the
+    constituents fitted on their own (priority order). ``inferred``: name ->
+    :class:`qcpipe.tide.harmonics.Inference`, set from a resolved one (their
+    constants are in ``constants`` too, standard errors scaled from the
+    reference's). ``dropped``: left out, name -> the constituent (or ``"Z0"``)
+    the record could not separate them from.
     """
 
     mean_level_m: float
@@ -99,6 +127,8 @@ class TideFit:
     latitude_deg: float | None = None
     rayleigh: float = 1.0
     dropped: dict[str, str] = field(default_factory=dict)
+    resolved: tuple[str, ...] = ()
+    inferred: dict[str, Inference] = field(default_factory=dict)
 
     @property
     def amplitudes_m(self) -> dict[str, float]:
@@ -117,11 +147,13 @@ class TideFit:
                       f" ({self.record_days:.1f} days, Rayleigh factor {self.rayleigh:g})")
         return TideConstants(site=site, datum=datum, mean_level_m=self.mean_level_m,
                              constituents=self.constants, source=source,
-                             latitude_deg=self.latitude_deg)
+                             latitude_deg=self.latitude_deg, record_days=self.record_days,
+                             resolved=tuple(self.resolved), inferred=dict(self.inferred),
+                             dropped=dict(self.dropped))
 
 
 def fit_constituents(times, heights, *, latitude: float | None = None, constituents=None,
-                     min_record_days: float = 15.0, rayleigh: float = 1.0) -> TideFit:
+                     min_record_days: float = 15.0, rayleigh: float = 1.0, infer=True) -> TideFit:
     """Harmonic constants of a water-level record by least squares.
 
     Parameters
@@ -141,10 +173,18 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
         Shortest record accepted (last valid time minus first), days.
     rayleigh : float, default 1.0
         Rayleigh factor R.
+    infer : bool or mapping, default True
+        True: infer the pairs of :data:`EQUILIBRIUM_INFERENCE` (K2 from S2, P1
+        from K1, N2 from M2, Q1 from O1). A mapping name ->
+        :class:`qcpipe.tide.harmonics.Inference` gives other ratios or phase
+        differences (e.g. from a nearby long record). False: none. A constituent
+        is inferred only when it is a candidate, the Rayleigh criterion drops it
+        in favour of exactly its reference, and the reference is resolved.
 
     Returns
     -------
     TideFit
+        With the constituents resolved, inferred and dropped, and the record length.
 
     Raises
     ------
@@ -168,6 +208,10 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
     explicit = constituents is not None
     candidates = list(constituents) if explicit else list(PRIORITY)
     names, dropped = select_constituents(candidates, record_days * 24.0, rayleigh=rayleigh)
+    table = _inference_table(infer)
+    inferred = {n: table[n] for n, clash in dropped.items()
+                if n in table and table[n].reference == clash and clash in names}
+    dropped = {n: c for n, c in dropped.items() if n not in inferred}
     if explicit and dropped:
         warnings.warn(
             f"record of {record_days:.1f} days cannot separate "
@@ -180,11 +224,13 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
                          "use a longer record or fewer constituents")
 
     if k:
-        b = day_blocks(names, days)
+        b = day_blocks(names + list(inferred), days)
+    merge = [(k + i, names.index(inf.reference), inf.amplitude_ratio, math.radians(inf.phase_difference_deg))
+             for i, inf in enumerate(inferred.values())]
     normal = np.zeros((npar, npar))
     rhs = np.zeros(npar)
     for start in range(0, days.size, _CHUNK):
-        x = _design(b, slice(start, start + _CHUNK), y[start:start + _CHUNK].size) if k else None
+        x = _design(b, slice(start, start + _CHUNK), y[start:start + _CHUNK].size, merge) if k else None
         X = np.ones((y[start:start + _CHUNK].size, 1)) if x is None else x
         normal += X.T @ X
         rhs += X.T @ y[start:start + _CHUNK]
@@ -201,7 +247,7 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
     ss = 0.0
     for start in range(0, days.size, _CHUNK):
         sl = slice(start, start + _CHUNK)
-        X = _design(b, sl, y[sl].size) if k else np.ones((y[sl].size, 1))
+        X = _design(b, sl, y[sl].size, merge) if k else np.ones((y[sl].size, 1))
         r = y[sl] - X @ beta
         ss += float(r @ r)
     dof = days.size - npar
@@ -221,22 +267,59 @@ def fit_constituents(times, heights, *, latitude: float | None = None, constitue
         else:
             se_h, se_g = math.sqrt(va), 180.0
         consts.append(HarmonicConstant(name, H, g, se_h, min(se_g, 180.0)))
+    by_name = {c.name: c for c in consts}
+    for name, inf in inferred.items():
+        ref = by_name[inf.reference]
+        consts.append(HarmonicConstant(name, inf.amplitude_ratio * ref.amplitude_m,
+                                       (ref.phase_deg + inf.phase_difference_deg) % 360.0,
+                                       inf.amplitude_ratio * ref.amplitude_se_m, ref.phase_se_deg))
     t_ok = np.asarray(times).reshape(-1)[ok].astype("datetime64[s]")
     return TideFit(
         mean_level_m=float(beta[0]), mean_level_se_m=float(math.sqrt(cov[0, 0])),
         constants=tuple(consts), residual_std_m=float(math.sqrt(var)), record_days=record_days,
         n_samples=int(days.size), start=t_ok.min(), end=t_ok.max(),
         latitude_deg=None if latitude is None else float(latitude), rayleigh=float(rayleigh),
-        dropped=dropped)
+        dropped=dropped, resolved=tuple(names), inferred=inferred)
 
 
-def _design(b, sl: slice, m: int) -> np.ndarray:
-    """Design matrix rows for samples ``sl``: [1, f cos(V+u), f sin(V+u), ...]."""
+def _inference_table(infer) -> dict[str, Inference]:
+    """The inference pairs asked for: True -> EQUILIBRIUM_INFERENCE, False/None -> none."""
+    if infer is True:
+        return dict(EQUILIBRIUM_INFERENCE)
+    if infer is False or infer is None:
+        return {}
+    table = {}
+    for name, inf in dict(infer).items():
+        if not isinstance(inf, Inference):
+            raise TypeError(f"infer[{name!r}] must be a qcpipe.tide.harmonics.Inference; "
+                            f"found {type(inf).__name__}")
+        if not (math.isfinite(inf.amplitude_ratio) and inf.amplitude_ratio >= 0
+                and math.isfinite(inf.phase_difference_deg)):
+            raise ValueError(f"infer[{name!r}]: amplitude ratio {inf.amplitude_ratio!r} must be >= 0 and "
+                             f"phase difference {inf.phase_difference_deg!r} deg finite")
+        table[constituent(name).name] = Inference(constituent(inf.reference).name,
+                                                  float(inf.amplitude_ratio), float(inf.phase_difference_deg))
+    return table
+
+
+def _design(b, sl: slice, m: int, merge=()) -> np.ndarray:
+    """Design matrix rows for samples ``sl``: [1, f cos(V+u), f sin(V+u), ...].
+
+    ``b`` holds the resolved constituents then the inferred ones; each ``merge``
+    entry (inferred column, reference index, ratio r, phase difference d in
+    radians) adds ``r f cos(V + u - d)`` and ``r f sin(V + u - d)`` of the
+    inferred constituent to its reference's two columns; the inferred columns are
+    not in the result.
+    """
     idx = b.index[sl]
     arg = b.dt_hours[sl, None] * b.speed_rad[None, :] + b.vu_rad[idx]
     f = b.f[idx]
-    X = np.empty((m, 1 + 2 * arg.shape[1]))
+    k = arg.shape[1] - len(merge)
+    X = np.empty((m, 1 + 2 * k))
     X[:, 0] = 1.0
-    X[:, 1::2] = f * np.cos(arg)
-    X[:, 2::2] = f * np.sin(arg)
+    X[:, 1::2] = f[:, :k] * np.cos(arg[:, :k])
+    X[:, 2::2] = f[:, :k] * np.sin(arg[:, :k])
+    for col, ref, ratio, d in merge:
+        X[:, 1 + 2 * ref] += ratio * f[:, col] * np.cos(arg[:, col] - d)
+        X[:, 2 + 2 * ref] += ratio * f[:, col] * np.sin(arg[:, col] - d)
     return X

@@ -13,9 +13,18 @@ mean sun), :math:`s, h, p` the mean longitudes of the moon, the sun and the
 lunar perigee, :math:`N' = -N` the negative longitude of the moon's ascending
 node and :math:`p_1` the longitude of the solar perigee.  The arguments and the
 constant phases :math:`c` follow Table 2 of [Schureman1958]_ rewritten in
-:math:`\\tau` (Schureman's :math:`T = \\tau - s + h`); the tables here were
+:math:`\\tau` (Schureman's :math:`T = \\tau + s - h`); the tables here were
 written from memory of that table and are checked in the tests against published
 speeds and against an independent program.
+
+M1 is Schureman's composite of two lunar terms with arguments about
+:math:`\\tau \\pm P` (:math:`P = p - \\xi`, [Schureman1958]_): its equilibrium argument is
+:math:`V = T - s + h - 90° = \\tau - 90°` and its nodal angle
+:math:`u = \\xi - \\nu + Q` holds the angle Q, which turns once per revolution of
+the lunar perigee (8.85 years).  The perigee therefore enters through u only; its
+mean rate is added to the speed (14.4966939 deg/h, Schureman's Table 2), not to V.
+Counting p in V as well would count the perigee twice (a phase drift of about 41
+degrees a year).
 
 Nodal corrections (the factor :math:`f` and the angle :math:`u`) use the
 formulas of [Schureman1958]_ in the lunar orbit's inclination to the equator
@@ -65,6 +74,10 @@ class Constituent:
         ``(("M2", -1),)`` for MSF (= S2 - M2); empty for purely solar terms.
     description : str
         What the constituent is.
+    u_rate : tuple of 6 int
+        Coefficients of (tau, s, h, p, N', p1) in the mean rate of the nodal
+        angle u: zero except for M1, whose u turns with the perigee, (0, 0, 0,
+        1, 0, 0).  The speed is the rate of V plus this rate.
     """
 
     name: str
@@ -72,11 +85,13 @@ class Constituent:
     phase_deg: float
     nodal: tuple[tuple[str, int], ...]
     description: str = ""
+    u_rate: tuple[int, int, int, int, int, int] = (0, 0, 0, 0, 0, 0)
 
     @property
     def speed_deg_per_hour(self) -> float:
-        """Angular speed in degrees per mean solar hour (sum of coefficient x rate)."""
-        return float(np.dot(self.doodson, ARGUMENT_RATES))
+        """Angular speed in degrees per mean solar hour: (V's coefficients + u's mean
+        rate coefficients) x the rates of the arguments."""
+        return float(np.dot(np.add(self.doodson, self.u_rate), ARGUMENT_RATES))
 
     @property
     def species(self) -> int:
@@ -84,28 +99,30 @@ class Constituent:
         return self.doodson[0]
 
 
-def _c(name, doodson, phase, nodal, description):
-    return Constituent(name, tuple(doodson), float(phase), tuple(nodal), description)
+def _c(name, doodson, phase, nodal, description, u_rate=(0, 0, 0, 0, 0, 0)):
+    return Constituent(name, tuple(doodson), float(phase), tuple(nodal), description, tuple(u_rate))
 
 
 def _compound(name, parts, description):
     """A compound constituent: the sum of ``n * parent`` over ``parts``."""
     doodson = np.zeros(6, dtype=int)
+    u_rate = np.zeros(6, dtype=int)
     phase = 0.0
     nodal: dict[str, int] = {}
     for parent_name, n in parts:
         parent = _BASE[parent_name]
         doodson += n * np.array(parent.doodson)
+        u_rate += n * np.array(parent.u_rate)
         phase += n * parent.phase_deg
         for key, m in parent.nodal:
             nodal[key] = nodal.get(key, 0) + n * m
     nodal_t = tuple((k, m) for k, m in nodal.items() if m != 0)
     return Constituent(name, tuple(int(x) for x in doodson), float(np.mod(phase, 360.0)),
-                       nodal_t, description)
+                       nodal_t, description, tuple(int(x) for x in u_rate))
 
 
 # Astronomical constituents.  V from [Schureman1958] Table 2 (from memory),
-# rewritten with T = tau - s + h; nodal formula names refer to _nodal_formulas.
+# rewritten with T = tau + s - h; nodal formula names refer to _nodal_formulas.
 _BASE: dict[str, Constituent] = {c.name: c for c in [
     # long period
     _c("SA", (0, 0, 1, 0, 0, 0), 0.0, (), "solar annual"),
@@ -120,8 +137,9 @@ _BASE: dict[str, Constituent] = {c.name: c for c in [
     _c("Q1", (1, -2, 0, 1, 0, 0), 90.0, (("O1", 1),), "larger lunar elliptic diurnal"),
     _c("RHO1", (1, -2, 2, -1, 0, 0), 90.0, (("O1", 1),), "larger lunar evectional diurnal"),
     _c("O1", (1, -1, 0, 0, 0, 0), 90.0, (("O1", 1),), "principal lunar diurnal"),
-    _c("M1", (1, 0, 0, 1, 0, 0), -90.0, (("M1", 1),),
-       "smaller lunar elliptic diurnal (Schureman's composite M1)"),
+    _c("M1", (1, 0, 0, 0, 0, 0), -90.0, (("M1", 1),),
+       "smaller lunar elliptic diurnal (Schureman's composite M1; p enters through u = xi - nu + Q)",
+       u_rate=(0, 0, 0, 1, 0, 0)),
     _c("PI1", (1, 1, -3, 0, 0, 1), 90.0, (), "solar elliptic diurnal"),
     _c("P1", (1, 1, -2, 0, 0, 0), 90.0, (), "principal solar diurnal"),
     _c("S1", (1, 1, -1, 0, 0, 0), 0.0, (), "solar diurnal (mostly radiational)"),

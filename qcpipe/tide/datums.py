@@ -11,10 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from qcpipe.tide.events import TideEvents, high_low_waters, tidal_day_classes
+from qcpipe.tide.events import TideEvents, default_tidal_day_origin, high_low_waters, tidal_day_classes
 
 from .. import arrays as v
-from ..arrays import NS, series
+from ..arrays import NS, as_ns, series
 
 _HOUR_NS = 3600 * NS
 
@@ -35,8 +35,10 @@ class TidalDatums:
     n_high_waters, n_low_waters, n_hourly_heights : int
         Numbers of values averaged.
     note : str
-        The record used, and that a record shorter than the 19-year National
-        Tidal Datum Epoch gives approximate datums.
+        The record used, the tidal-day origin, and that a record shorter than
+        the 19-year National Tidal Datum Epoch gives approximate datums.
+    tidal_day_origin : numpy.datetime64
+        Start of the first tidal day used for MHHW and MLLW (UTC, ns).
     """
 
     mhhw: float
@@ -53,6 +55,7 @@ class TidalDatums:
     n_low_waters: int
     n_hourly_heights: int
     note: str
+    tidal_day_origin: np.datetime64
 
 
 def hourly_heights(t_ns: np.ndarray, h: np.ndarray, *, max_gap_ns: int) -> np.ndarray:
@@ -78,7 +81,8 @@ def hourly_heights(t_ns: np.ndarray, h: np.ndarray, *, max_gap_ns: int) -> np.nd
 
 
 def tidal_datums(
-    times, heights, events: TideEvents | None = None, *, max_gap_s: float = 3600.0
+    times, heights, events: TideEvents | None = None, *, max_gap_s: float = 3600.0,
+    tidal_day_origin=None,
 ) -> TidalDatums:
     r"""Tidal datums of a water-level record, by their standard definitions.
 
@@ -94,6 +98,10 @@ def tidal_datums(
     max_gap_s : float, default 3600
         An hour whose bracketing valid samples are more than this many seconds
         apart gives no hourly height.
+    tidal_day_origin : datetime64 or int64 nanoseconds, optional
+        Start of the first tidal day (for MHHW, MLLW, DTL, GT). Default: 1/8 of
+        a tidal day (3.1 h) before the first event (see
+        :func:`qcpipe.tide.events.tidal_day_classes`).
 
     Returns
     -------
@@ -112,7 +120,17 @@ def tidal_datums(
     * MHHW: mean of the higher high water of each tidal day; MLLW: mean of the
       lower low water of each tidal day (classes from
       :func:`qcpipe.tide.events.tidal_day_classes`; a tidal day with a single
-      high water counts it as the higher high water).
+      high water counts it as the higher high water). Tidal days are
+      consecutive intervals of 24.8412 h from `tidal_day_origin`, by default
+      3.1 h before the first event; the origin used is returned and stated in
+      `note`. Where a tidal day holds two high (low) waters of nearly equal
+      height, where the boundary falls decides which events are compared: on a
+      month-long record, moving the origin through a tidal day moves MHHW and
+      MLLW by a few centimetres (measured on synthetic tides of 1 m total
+      amplitude, form factors 0.1 to purely diurnal, 6-min sampling: up to
+      about 2 cm for MLLW and up to about 5 cm for MHHW on 30 days; 1 to 3 cm on
+      180 days; ``tests/tide/test_datums.py``). Give the same origin to compare
+      records; over the 19-year epoch the effect averages out.
     * MTL = (MHW + MLW) / 2; DTL = (MHHW + MLLW) / 2.
     * MSL: mean of the hourly heights (heights at each whole UTC hour, linearly
       interpolated between the samples around it).
@@ -139,7 +157,10 @@ def tidal_datums(
             "waters; datums need at least one of each (is the record shorter than a "
             "tidal cycle, or the range below min_range_m?)"
         )
-    labels = tidal_day_classes(events)
+    origin_ns = default_tidal_day_origin(events)
+    if tidal_day_origin is not None:
+        origin_ns = int(as_ns(np.atleast_1d(tidal_day_origin), func=func, name="tidal_day_origin")[0])
+    labels = tidal_day_classes(events, origin=origin_ns)
     mhw = float(events.height[high].mean())
     mlw = float(events.height[~high].mean())
     mhhw = float(events.height[labels == "HHW"].mean())
@@ -148,10 +169,12 @@ def tidal_datums(
     hourly = hourly_heights(tv, hv, max_gap_ns=gap_ns)
     msl = float(hourly.mean()) if hourly.size else float("nan")
     days = float(tv[-1] - tv[0]) / (86400 * NS)
-    first, last = (np.datetime64(int(x), "ns").astype("datetime64[s]") for x in (tv[0], tv[-1]))
+    first, last, origin = (np.datetime64(int(x), "ns").astype("datetime64[s]")
+                           for x in (tv[0], tv[-1], origin_ns))
     note = (
         f"Datums from {days:.2f} days of record ({first}Z to {last}Z; {int(high.sum())} high "
-        f"and {int((~high).sum())} low waters, {hourly.size} hourly heights), not reduced "
+        f"and {int((~high).sum())} low waters, {hourly.size} hourly heights; tidal days of "
+        f"24.8412 h from {origin}Z), not reduced "
         "to a National Tidal Datum Epoch: a record shorter than the 19-year epoch gives "
         "approximate datums (NOAA 2000)."
     )
@@ -170,4 +193,5 @@ def tidal_datums(
         n_low_waters=int((~high).sum()),
         n_hourly_heights=int(hourly.size),
         note=note,
+        tidal_day_origin=np.datetime64(origin_ns, "ns"),
     )

@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constituents import ARGUMENT_RATES, CONSTITUENTS, constituent, nodal_corrections
+from .constituents import CONSTITUENTS, constituent, nodal_corrections
 
 #: Greenwich mean noon, 1899 December 31: origin of Schureman's polynomials
 EPOCH = np.datetime64("1899-12-31T12:00:00", "us")
@@ -72,8 +72,27 @@ class HarmonicConstant:
 
 
 @dataclass(frozen=True)
+class Inference:
+    """How an inferred constituent was set: its amplitude is ``amplitude_ratio`` times
+    that of ``reference`` and its Greenwich phase lag that of ``reference`` plus
+    ``phase_difference_deg`` (degrees)."""
+
+    reference: str
+    amplitude_ratio: float
+    phase_difference_deg: float = 0.0
+
+
+@dataclass(frozen=True)
 class TideConstants:
-    """Harmonic constants of a site (file format: :mod:`qcpipe.config.constituents`)."""
+    """Harmonic constants of a site (file format: :mod:`qcpipe.config.constituents`).
+
+    The fit metadata are optional (None: not known, as for published constants):
+    ``record_days`` the length of the record fitted (days, first to last valid
+    sample); ``resolved`` the constituents fitted on their own; ``inferred`` the
+    constituents set from a resolved one (name -> :class:`Inference`; also in
+    ``constituents``); ``dropped`` those left out, name -> the constituent (or
+    ``"Z0"``, the mean level) the record could not separate them from.
+    """
 
     site: str
     datum: str
@@ -82,6 +101,10 @@ class TideConstants:
     source: str = ""
     epoch_note: str = "Greenwich phase lags, UTC"
     latitude_deg: float | None = None
+    record_days: float | None = None
+    resolved: tuple[str, ...] | None = None
+    inferred: dict[str, Inference] | None = None
+    dropped: dict[str, str] | None = None
 
 
 def days_from_epoch(times) -> np.ndarray:
@@ -188,7 +211,7 @@ def day_blocks(names: list[str], days: np.ndarray) -> _Blocks:
     ref = np.round(days)                 # days count from noon: round() gives that day's noon
     uniq, index = np.unique(ref, return_inverse=True)
     V, u, f = _arguments_at_days(names, uniq)
-    speeds = np.array([np.dot(CONSTITUENTS[n].doodson, ARGUMENT_RATES) for n in names])
+    speeds = np.array([CONSTITUENTS[n].speed_deg_per_hour for n in names])
     return _Blocks(index.reshape(-1), (days - ref) * 24.0, np.deg2rad(V + u), f, np.deg2rad(speeds))
 
 

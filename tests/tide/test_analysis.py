@@ -122,9 +122,16 @@ def test_fit_applies_rayleigh_to_the_record(days, kept_p1):
     h = predict_tide(t, MAJOR8)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        fit = fit_constituents(t, h, constituents=["K1", "P1", "M2", "O1"])
+        fit = fit_constituents(t, h, constituents=["K1", "P1", "M2", "O1"], infer=False)
     assert ("P1" in fit.amplitudes_m) is kept_p1
+    assert ("P1" in fit.resolved) is kept_p1 and ("P1" in fit.dropped) is (not kept_p1)
     assert any(issubclass(w.category, RayleighWarning) for w in caught) is (not kept_p1)
+    # with inference (the default) P1 unresolved is inferred from K1, not left out
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        fit = fit_constituents(t, h, constituents=["K1", "P1", "M2", "O1"])
+    assert "P1" in fit.amplitudes_m and ("P1" in fit.inferred) is (not kept_p1)
+    assert not fit.dropped and not any(issubclass(w.category, RayleighWarning) for w in caught)
 
 
 def test_default_selection_keeps_priority_order_and_drops_exact_aliases():
@@ -172,3 +179,81 @@ def test_argument_errors(kwargs, match):
     args = {"heights": np.zeros(t.size), **kwargs}
     with pytest.raises(ValueError, match=match):
         fit_constituents(t, args.pop("heights"), **args)
+
+
+# ---------------------------------------------------------------- inference of unresolved pairs
+
+def test_equilibrium_ratios_agree_with_schureman_coefficients():
+    # Two sources for the equilibrium amplitude ratio: Cartwright and Tayler (1971)
+    # amplitudes in EQUILIBRIUM_INFERENCE, and Schureman (1958) Table 2 mean
+    # coefficients (from memory): K2 0.1152 (lunar 0.0786 + solar 0.0366), S2 0.4227,
+    # K1 0.5305, P1 0.1755, M2 0.9085, N2 0.1759, O1 0.3771, Q1 0.0730. 1.5 %: the
+    # two tables' different expansions and rounding.
+    from qcpipe.tide.analysis import EQUILIBRIUM_INFERENCE
+
+    schureman = {"K2": 0.1152 / 0.4227, "P1": 0.1755 / 0.5305, "N2": 0.1759 / 0.9085, "Q1": 0.0730 / 0.3771}
+    for name, ratio in schureman.items():
+        assert EQUILIBRIUM_INFERENCE[name].amplitude_ratio == pytest.approx(ratio, rel=0.015), name
+        assert EQUILIBRIUM_INFERENCE[name].phase_difference_deg == 0.0
+
+
+def test_short_record_infers_k2_and_p1_and_says_so():
+    # A 60-day record of a tide whose K2 and P1 follow the equilibrium relation to
+    # S2 and K1 exactly: with inference the four come back to 0.5 mm and 0.1 deg;
+    # without it S2 and K1 take in their neighbours and are centimetres off.
+    from qcpipe.tide.analysis import EQUILIBRIUM_INFERENCE
+
+    truth = dict(MAJOR8)
+    truth["K2"] = (EQUILIBRIUM_INFERENCE["K2"].amplitude_ratio * truth["S2"][0], truth["S2"][1])
+    truth["P1"] = (EQUILIBRIUM_INFERENCE["P1"].amplitude_ratio * truth["K1"][0], truth["K1"][1])
+    t = _hourly("2026-03-01", 60)
+    h = predict_tide(t, truth, mean_level=2.0)
+    fit = fit_constituents(t, h, latitude=48.0)
+    assert fit.record_days == pytest.approx(60.0)
+    assert {"K2", "P1"} <= set(fit.inferred) and not {"K2", "P1"} & set(fit.resolved)
+    assert fit.inferred["K2"].reference == "S2" and fit.inferred["P1"].reference == "K1"
+    assert {"M2", "S2", "N2", "K1", "O1", "Q1"} <= set(fit.resolved)
+    assert not set(fit.resolved) & set(fit.dropped) and not set(fit.inferred) & set(fit.dropped)
+    assert set(fit.resolved) | set(fit.inferred) == set(fit.amplitudes_m)
+    _assert_recovers(fit, {k: truth[k] for k in ("S2", "K2", "K1", "P1")}, amp_atol=5e-4, phase_atol=0.1)
+    plain = fit_constituents(t, h, latitude=48.0, infer=False)
+    assert "K2" in plain.dropped and "K2" not in plain.amplitudes_m
+    assert abs(plain.amplitudes_m["S2"] - truth["S2"][0]) > 0.01
+
+
+def test_inference_matches_utide():
+    # utide.solve with its exact inference (K2 from S2, P1 from K1 at the same
+    # ratios, no phase offset) on a noisy 90-day record whose K2 and P1 do not
+    # follow the ratios exactly: amplitudes within 2 mm and phases within 0.5 deg
+    # (the project's tolerances against utide)
+    import utide
+    from utide.utilities import Bunch
+
+    from qcpipe.tide.analysis import EQUILIBRIUM_INFERENCE
+
+    rng = np.random.default_rng(11)
+    t = _hourly("2026-04-01", 90)
+    h = predict_tide(t, MAJOR8, mean_level=2.0) + rng.normal(0.0, 0.05, t.size)
+    names = ["M2", "S2", "N2", "K1", "O1", "Q1"]
+    ours = fit_constituents(t, h, latitude=48.0, constituents=names + ["K2", "P1"])
+    assert set(ours.inferred) == {"K2", "P1"}
+    ref = utide.solve(t, h, lat=48.0, method="ols", conf_int="linear", nodal=True, trend=False,
+                      constit=names, verbose=False,
+                      infer=Bunch(inferred_names=["K2", "P1"], reference_names=["S2", "K1"],
+                                  amp_ratios=[EQUILIBRIUM_INFERENCE["K2"].amplitude_ratio,
+                                              EQUILIBRIUM_INFERENCE["P1"].amplitude_ratio],
+                                  phase_offsets=[0.0, 0.0]))
+    for name, amp, g in zip(ref.name, ref.A, ref.g):
+        assert ours.amplitudes_m[name] == pytest.approx(amp, abs=0.002), name
+        assert _phase_diff(ours.phases_deg[name], g) == pytest.approx(0.0, abs=0.5), name
+
+
+def test_fit_metadata_reach_the_constants_file(tmp_path):
+    t = _hourly("2026-01-01", 40)
+    h = predict_tide(t, MAJOR8, mean_level=2.0)
+    fit = fit_constituents(t, h, latitude=-41.0)
+    constants = fit.to_constants(site="Kelpwhistle Cove", datum="CD")
+    assert constants.record_days == fit.record_days and constants.resolved == fit.resolved
+    assert constants.inferred == fit.inferred and constants.dropped == fit.dropped
+    loaded = load_constituents(write_constituents(tmp_path / "fit.toml", constants))
+    assert loaded == constants

@@ -109,3 +109,53 @@ def test_no_events_is_an_error():
     t = np.arange(0, 86400, 600.0)
     with pytest.raises(ValueError, match="holds 0 high and 0 low waters; datums need"):
         tidal_datums(ns(t), np.full(t.size, 1.5))
+
+
+# ---------------------------------------------------------------- any form factor
+# Reference: tests/tide/brute_tide.py (events from the analytical derivative by
+# brentq and the minimum-height rule by a plain loop; datums by loops over tidal
+# days of 24.8412 h, NOAA 2000 definitions, from memory).
+
+FORM_FACTORS = [0.1, 0.5, 0.9, 1.2, 2.0, 4.0, float("inf")]
+
+
+@pytest.mark.parametrize("form_factor", FORM_FACTORS, ids=lambda f: f"F={f:g}")
+def test_datums_at_every_form_factor_match_brute_force(form_factor):
+    # 32 days at 6-min sampling; tidal days from 3.1 h (1/8 tidal day) before the
+    # first high or low water, in both; MHW, MLW, MHHW, MLLW within 5 mm (issue 13)
+    from tests.tide.brute_tide import TIDAL_DAY_S, brute_datums, brute_events, constituents_for_form_factor, level
+
+    amps = constituents_for_form_factor(form_factor)
+    t = np.arange(0, 32 * 86400 + 1, 360.0)
+    d = tidal_datums(ns(t), level(amps, t))
+    bt, bh, bhigh = brute_events(amps, t[0], t[-1])
+    ref = brute_datums(bt, bh, bhigh, bt[0] - TIDAL_DAY_S / 8)
+    assert (d.tidal_day_origin.astype("datetime64[ns]").view(np.int64) - T0) / S == pytest.approx(
+        bt[0] - TIDAL_DAY_S / 8, abs=300)
+    for key in ("mhw", "mlw", "mhhw", "mllw"):
+        assert getattr(d, key) == pytest.approx(ref[key], abs=0.005), key
+    assert d.n_high_waters == int(bhigh.sum()) and d.n_low_waters == int((~bhigh).sum())
+
+
+@pytest.mark.parametrize("form_factor", [0.9, 2.0], ids=lambda f: f"F={f:g}")
+def test_tidal_day_origin_is_used_and_stated(form_factor):
+    # The same brute-force comparison with origins through a tidal day (every
+    # 3 h); the note names the origin. Moving it moves MHHW by centimetres on a
+    # month-long record (stated in tidal_datums' Notes: up to about 5 cm for these
+    # 1-m tides): here by more than 5 mm and less than 6 cm.
+    from tests.tide.brute_tide import brute_datums, brute_events, constituents_for_form_factor, level
+
+    amps = constituents_for_form_factor(form_factor)
+    t = np.arange(0, 32 * 86400 + 1, 360.0)
+    h = level(amps, t)
+    ev = high_low_waters(ns(t), h)
+    bt, bh, bhigh = brute_events(amps, t[0], t[-1])
+    mhhw = []
+    for hours in np.arange(0.0, 24.0, 3.0):
+        d = tidal_datums(ns(t), h, ev, tidal_day_origin=np.datetime64(int(ns(np.array([hours * 3600]))[0]), "ns"))
+        ref = brute_datums(bt, bh, bhigh, hours * 3600)
+        assert d.mhhw == pytest.approx(ref["mhhw"], abs=0.005)
+        assert d.mllw == pytest.approx(ref["mllw"], abs=0.005)
+        assert f"from {np.datetime64(int(ns(np.array([hours * 3600]))[0]), 'ns').astype('datetime64[s]')}Z" in d.note
+        mhhw.append(d.mhhw)
+    assert 0.005 < np.ptp(mhhw) < 0.06

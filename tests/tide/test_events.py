@@ -232,3 +232,61 @@ def test_error_messages(kwargs, match):
 def test_unsorted_times_are_refused():
     with pytest.raises(ValueError, match="must be non-decreasing"):
         high_low_waters(np.array([0, 2, 1], dtype=np.int64), np.zeros(3))
+
+
+# ---------------------------------------------------------------- any form factor
+# Reference: tests/tide/brute_tide.py (independent: analytical derivative roots on a
+# 20-s grid refined by brentq, and the minimum-height rule by a plain loop).
+
+FORM_FACTORS = [0.1, 0.5, 0.9, 1.2, 2.0, 4.0, float("inf")]
+
+
+@pytest.mark.parametrize("form_factor", FORM_FACTORS, ids=lambda f: f"F={f:g}")
+@pytest.mark.parametrize("step_s", [360.0, 900.0], ids=["6min", "15min"])
+def test_events_at_every_form_factor_match_brute_force(form_factor, step_s):
+    # (K1 + O1) / (M2 + S2) = form_factor, 32 days; every brute-force event found
+    # with the same kind, heights within 5 mm and times within 5 min (the
+    # tolerances of issue 13), and no other event
+    from tests.tide.brute_tide import brute_events, constituents_for_form_factor, level
+
+    amps = constituents_for_form_factor(form_factor)
+    t = np.arange(0, 32 * 86400 + 1, step_s)
+    ev = high_low_waters(T0 + (t * S).astype(np.int64), level(amps, t))
+    bt, bh, bhigh = brute_events(amps, t[0], t[-1])
+    assert len(ev) == bt.size
+    np.testing.assert_array_equal(ev.kind, np.where(bhigh, "high", "low"))
+    np.testing.assert_allclose(seconds(ev), bt, atol=300, rtol=0)
+    np.testing.assert_allclose(ev.height, bh, atol=0.005, rtol=0)
+
+
+def test_mixed_tide_pairs_closer_than_four_hours_are_kept():
+    # F = 2: the brute-force record holds high/low pairs about 3 h apart and more
+    # than min_range_m = 5 cm different; the former default 4-h separation rule
+    # deleted them, the default (no time rule) keeps them
+    from tests.tide.brute_tide import brute_events, constituents_for_form_factor, level
+
+    amps = constituents_for_form_factor(2.0)
+    t = np.arange(0, 32 * 86400 + 1, 360.0)
+    bt, _, _ = brute_events(amps, t[0], t[-1])
+    assert np.diff(bt).min() < 3.5 * 3600
+    ev = high_low_waters(T0 + (t * S).astype(np.int64), level(amps, t))
+    assert len(ev) == bt.size
+    fewer = high_low_waters(T0 + (t * S).astype(np.int64), level(amps, t), min_separation_s=4 * 3600)
+    assert len(fewer) < bt.size
+
+
+def test_broad_diurnal_crest_times_within_a_minute():
+    # Purely diurnal tide at neap (K1 and O1 nearly opposed; the crests are
+    # broad and asymmetric), 15-min sampling rounded to 1 mm as a gauge reports
+    # it: crest times within 1 min of the derivative roots (the former parabola
+    # over 1 h missed three of 63 crests here by more than that)
+    from tests.tide.brute_tide import brute_events, constituents_for_form_factor, level
+
+    amps = constituents_for_form_factor(float("inf"))
+    t = np.arange(0, 32 * 86400 + 1, 900.0)
+    h = np.round(level(amps, t), 3)
+    ev = high_low_waters(T0 + (t * S).astype(np.int64), h)
+    bt, bh, _ = brute_events(amps, t[0], t[-1])
+    assert len(ev) == bt.size
+    np.testing.assert_allclose(seconds(ev), bt, atol=60, rtol=0)
+    np.testing.assert_allclose(ev.height, bh, atol=0.001, rtol=0)

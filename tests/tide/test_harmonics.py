@@ -184,3 +184,82 @@ def test_prediction_accepts_sequences_and_gives_nan_for_nat():
 def test_prediction_rejects_bad_constituents(constituents, match):
     with pytest.raises(ValueError, match=match):
         predict_tide(np.array(["2026-01-01"], dtype="datetime64[s]"), constituents)
+
+
+# ---------------------------------------------------------------- M1
+
+def _nineteen_years_monthly():
+    return np.arange(np.datetime64("2000-01-01"), np.datetime64("2019-01-01"),
+                     np.timedelta64(30, "D")).astype("datetime64[s]")
+
+
+def test_m1_argument_has_no_secular_drift_against_tau_plus_p():
+    # Schureman (1958): M1's V + u = tau - 90 + xi - nu + Q, and Q turns with the
+    # perigee, so (V + u) - (tau + p) is periodic (speed 14.4966939 deg/h = tau + p,
+    # speeds.csv). Counting p in V as well drifts by the perigee's rate,
+    # 4069.03 deg / 100 years = 40.7 deg a year (Schureman Table 1, from memory).
+    t = _nineteen_years_monthly()
+    vu, _ = equilibrium_arguments(["M1"], t)
+    a = astronomical_arguments(t)
+    d = np.rad2deg(np.unwrap(np.deg2rad(vu[:, 0] - a.tau - a.p)))
+    years = (t - t[0]).astype(float) / 86400 / 365.25
+    slope = np.polyfit(years, d, 1)[0]
+    # 2 deg/yr: what a periodic remainder (Q - P, up to about 20 deg) can put on a
+    # straight line over 19 years that are not whole perigee cycles; 20 times
+    # less than the double count
+    assert abs(slope) < 2.0
+    assert np.ptp(d) < 90.0
+
+
+def test_m1_argument_follows_utide_without_drift():
+    # utide's NO1 (Foreman 1977: the 155.655 line, tau + p - 270 deg, with its
+    # satellites) is the same constituent; Schureman's composite angle Q and
+    # Foreman's satellite sum agree to within 20 deg over 19 years, with no trend
+    # (a double-counted perigee would drift 770 deg)
+    from utide._ut_constants import constit_index_dict
+    from utide.harmonics import FUV
+
+    t = _nineteen_years_monthly()
+    day = _utide_ordinal_days(t)
+    F, U, V = FUV(day, day[0], [constit_index_dict["NO1"]], 48.0, [0, 0, 0, 0])
+    vu, _ = equilibrium_arguments(["M1"], t)
+    dvu = (vu[:, 0] - (U[:, 0] + V[:, 0]) * 360.0 + 180.0) % 360.0 - 180.0
+    np.testing.assert_allclose(dvu, 0.0, atol=20.0)
+
+
+def test_m1_nodal_factor_range_matches_the_published_formula():
+    # Schureman (1958) eq. 197 at the mean inclination (from memory):
+    # f(M1) / f(O1) = 1/Qa = sqrt(2.310 + 1.435 cos 2P), so 0.935 to 1.936 as P turns.
+    # The inclination's node-cycle swing moves the ends by up to 0.035 (the full
+    # formula at I = 18.3 and 28.6 deg, worked by hand): tolerance 0.04.
+    t = np.arange(np.datetime64("2000-01-01"), np.datetime64("2019-01-01"), np.timedelta64(5, "D"))
+    _, f = equilibrium_arguments(["M1", "O1"], t)
+    ratio = f[:, 0] / f[:, 1]
+    lo, hi = np.sqrt(2.310 - 1.435), np.sqrt(2.310 + 1.435)
+    assert ratio.min() == pytest.approx(lo, abs=0.04)
+    assert ratio.max() == pytest.approx(hi, abs=0.04)
+    assert np.all((ratio > lo - 0.04) & (ratio < hi + 0.04))
+
+
+def test_prediction_matches_utide_reconstruct_over_four_years():
+    # utide.reconstruct (Foreman's satellite nodal corrections, its own astronomy)
+    # with the same constants for the six major constituents, hourly over 4 years:
+    # RMS difference under 3 mm (issue 13). utide needs a fit's structure to
+    # reconstruct from: solve on our prediction, then put the constants in it.
+    import utide
+
+    six = {k: MAJOR8[k] for k in ("M2", "S2", "N2", "K2", "K1", "O1")}
+    t_fit = _year_hourly(2026)
+    coef = utide.solve(t_fit, predict_tide(t_fit, six, mean_level=2.0), lat=48.0, method="ols",
+                       conf_int="none", nodal=True, trend=False, constit=list(six), verbose=False)
+    coef["A"] = np.array([six[n][0] for n in coef["name"]])
+    coef["g"] = np.array([six[n][1] for n in coef["name"]])
+    coef["mean"] = 2.0
+    t = np.arange(np.datetime64("2024-01-01T00:00"), np.datetime64("2028-01-01T00:00"), np.timedelta64(1, "h"))
+    theirs = utide.reconstruct(t, coef, verbose=False).h
+    ours = predict_tide(t, six, mean_level=2.0)
+    rms = float(np.sqrt(np.mean((ours - theirs) ** 2)))
+    assert rms < 0.003
+    # and the comparison can fail: a 2-degree phase error in M2 alone is 30 mm RMS
+    shifted = predict_tide(t, {**six, "M2": (1.20, 125.0)}, mean_level=2.0)
+    assert float(np.sqrt(np.mean((shifted - theirs) ** 2))) > 0.01
