@@ -3,8 +3,7 @@ a gauge, a probe that fouls for three days and a station whose loggers run an ho
 
 The scenario and its truth come from tests/scenarios/second_shore.py (seeded); each workspace is run
 once through the run sequence without the orchestrator (``nightly_run(ctx, InProcess())``), shared by
-the module.  Tests marked ``xfail(strict=True)`` wait for a feature of issue 15; remove the mark when it
-lands (strict: an unexpected pass fails, so the mark cannot be forgotten).
+the module.
 
 Figures not from the issue: the mean lunar ("tidal") day is 24 h 50 min (common knowledge of the trade,
 from memory); Courtier's form factor classes (F = (K1 + O1) / (M2 + S2): 0.25-1.5 mixed, mainly
@@ -31,8 +30,6 @@ TIDAL_DAY = np.timedelta64(int(24.84 * 3600), "s")     # mean lunar day, 24 h 50
 CLOCK_TOLERANCE_S = 600.0                               # issue 15 section 4: "within 10 min"
 MIN_AGREEMENT = 0.97                                    # issue 15 section 4: "at least 97 % of the time"
 
-NEEDS_LOCAL_FOULING = ("needs time-local fouling detection (issue 15 section 2): the whole-deployment "
-                       "separation score misses a 3-day fouling, whose wet samples are classed dry")
 
 
 @dataclass
@@ -213,8 +210,8 @@ def test_no_false_clock_verdict_at_the_other_stations(shore):
 
 
 def test_control_named_true_constants_find_the_hour_and_nothing_else(control):
-    # with the true constants named by hand (what the issue did with the gauge's fitted ones), the existing
-    # transition timing finds the hour: the scenario is detectable, the xfails above are about wiring
+    # with the true constants named by hand, transition timing finds the hour too: the site's own gauge
+    # (above) does as well as published constants would
     assert_clock_found(control)
     assert_no_false_clock_verdict(control)
 
@@ -226,14 +223,9 @@ _STAMP = re.compile(r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(?::\d{2})?")
 
 def reported_fouled_periods(run: ShoreRun, deployment: str) -> list[tuple[np.datetime64, np.datetime64]]:
     """(start, end) pairs of UTC stamps in the fouling notices of a deployment and in its dataset's
-    attributes whose name mentions fouling.
-
-    ADAPT (issue 15 section 2): the representation of a fouled period is being built by another helper;
-    this reads time stamps in pairs from the text, which should survive most choices.  Point it at the
-    real variable or attribute once it exists.
-    """
+    ``immersion_unreliable_periods`` attribute (time stamps read in pairs from the text)."""
     texts = [n.text for n in run.notices("fouling") if n.deployment == deployment]
-    texts += [str(v) for k, v in run.dataset(deployment).attrs.items() if "foul" in k.lower()]
+    texts += [str(run.dataset(deployment).attrs.get("immersion_unreliable_periods", ""))]
     periods = []
     for text in texts:
         stamps = [np.datetime64(x.replace(" ", "T"), "ns") for x in _STAMP.findall(text)]
@@ -241,7 +233,6 @@ def reported_fouled_periods(run: ShoreRun, deployment: str) -> list[tuple[np.dat
     return periods
 
 
-@pytest.mark.xfail(strict=True, reason=NEEDS_LOCAL_FOULING)
 def test_fouled_period_found_within_a_tidal_day(shore):
     s = shore.scenario
     start, end = s.fouled_period
@@ -267,7 +258,7 @@ def test_no_fouling_reported_at_the_healthy_probes(shore):
 @pytest.mark.parametrize("station", [
     "sp-crest",
     "sp-shelf",
-    pytest.param("sp-gully", marks=pytest.mark.xfail(strict=True, reason=NEEDS_LOCAL_FOULING)),
+    "sp-gully",
     "sp-fringe",
 ])
 def test_companion_immersion_agrees_with_the_truth(shore, station, record_property):

@@ -230,13 +230,43 @@ class ImmersionSettings(_Strict):
     hysteresis_fraction: float = Field(0.1, ge=0, lt=0.5, description="half-band around the threshold as a "
                                        "fraction of the distance between the dry and wet class means")
     min_state: float = 600.0
-    min_bimodality: float = Field(0.9, gt=0, lt=1, description="below this separation score the probe "
-                                  "is not clearly bimodal: its immersion series is flagged suspect")
+    min_separation: float = Field(6.0, gt=0, description="below this separation of the two classes (Ashman's D, "
+                                  "robust) the probe is not clearly bimodal: its immersion series is flagged suspect")
+    min_class_samples: int = Field(6, ge=1, description="fewest readings of the rarer state, in runs of two or more, "
+                                   "before the probe is believed to show two states; fewer: suspect")
     reference_tolerance: float = Field(0.25, gt=0, lt=1, description="allowed difference between the automatic "
                                        "threshold and the midpoint of the air/water references, as a fraction "
                                        "of their distance")
+    health_window: float = Field(24.8412 * 3600.0, description="window of the time-local health measure "
+                                 "(default one mean tidal day)")
+    level_band: float = Field(0.2, gt=0, lt=0.5, description="a reading within this fraction of the class "
+                              "distance of a class level is at that level; others are between")
+    max_level_shift: float = Field(0.05, gt=0, lt=0.5, description="shift of a window's class level, as a "
+                                   "fraction of the class distance, that makes the window suspect")
+    min_between_run: float = Field(1800.0, description="readings held between the levels this long are a "
+                                   "fouling sign (wetting and draining pass the band faster)")
+    min_window_samples: int = Field(6, ge=1, description="fewest readings of the kind a window counts before "
+                                    "it gets a verdict")
+    min_period: float = Field(86400.0, description="shortest unreliable period reported and flagged")
 
-    _d = field_validator("min_state", mode="before")(classmethod(lambda cls, v: _seconds_or_duration(v)))
+    _d = field_validator("min_state", "health_window", "min_between_run", "min_period",
+                         mode="before")(classmethod(lambda cls, v: _seconds_or_duration(v)))
+
+    @model_validator(mode="before")
+    @classmethod
+    def _renamed(cls, data):
+        if isinstance(data, dict) and "min_bimodality" in data:
+            raise ValueError("min_bimodality (Otsu's separability) was replaced by min_separation (Ashman's D "
+                             "between the two classes, default 6) and min_class_samples (default 6): remove "
+                             "min_bimodality")
+        return data
+
+    @model_validator(mode="after")
+    def _band(self):
+        if self.max_level_shift >= self.level_band:
+            raise ValueError(f"max_level_shift = {self.max_level_shift} must be below level_band = "
+                             f"{self.level_band} (a shift that large moves readings out of their band)")
+        return self
 
 
 class TideTiming(_Strict):

@@ -25,7 +25,7 @@ from ..probe_analysis import analyse_probe
 from ..tide_reference import (IMMERSION_PROBE, IMMERSION_SOURCE_MEANINGS, IMMERSION_UNKNOWN, OBSERVED_GAUGE,
                               SOURCE_MEANINGS, SiteTide, immersion_source_from_reference, state_from_level)
 from .context import Context
-from .references import site_barometer, station_immersion, swash_margin
+from .references import site_barometer, state_from_reference, station_immersion, swash_margin
 from .store import COUNT_KEYS, Store, load_store
 
 
@@ -107,11 +107,20 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
     water level) and what the tide checks compare with."""
     store, station, conv = p.store, p.station, p.conv
     if store.kind == "immersion_probe":
+        ref_state, ref_imm_source = state_from_reference(ctx, station, store.time, tide)
         analysis = analyse_probe(store.time, store.values["probe_reading"], probe_reference=p.dep.probe_reference,
                                  elevation_m=station.elevation_m, settings=ctx.rules.immersion,
-                                 timing_rules=ctx.rules.tide_timing, tide=tide)
+                                 timing_rules=ctx.rules.tide_timing, tide=tide,
+                                 reference_state=ref_state if np.any(ref_state != 2) else None)
         conv.variables["wetness"] = p.qc_vars["wetness"] = analysis.wetness
-        conv.immersion = analysis.state
+        # the station's state: the probe's, but the tide reference's where the probe is judged unreliable
+        station_state = analysis.state.copy()
+        imm_source = np.where(analysis.state == 2, IMMERSION_UNKNOWN, IMMERSION_PROBE).astype(np.int8)
+        if analysis.unreliable is not None and analysis.unreliable.any():
+            u = analysis.unreliable
+            station_state[u], imm_source[u] = ref_state[u], ref_imm_source[u]
+            p.tide_attrs["immersion_state_from_reference_samples"] = int(np.count_nonzero(u))
+        conv.immersion = station_state
         p.notices += probe_notices(analysis, station.id, p.dep.id)
         p.tide_attrs.update(analysis.attrs)
         if analysis.clock is not None:
@@ -125,8 +134,7 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
         else:
             p.tide_attrs["immersion_reference_level"] = tide.describe(ref_source)
             p.sources["tide_reference_source"] = ref_source
-        p.sources["immersion_source"] = np.where(analysis.state == 2, IMMERSION_UNKNOWN,
-                                                 IMMERSION_PROBE).astype(np.int8)
+        p.sources["immersion_source"] = imm_source
         p.analysis = analysis
         p.qc_args = dict(immersion=analysis.state, reference_level=ref_level, elevation_m=station.elevation_m,
                          readings=store.values["probe_reading"],

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..checks import FAIL
 from ..tide.clock import ClockVerdict
 from ..tide.elevation import ElevationCheck
 
@@ -49,13 +50,30 @@ def elevation_text(c: ElevationCheck) -> str:
     return f"elevation consistent: {detail}, within {c.tolerance_m:.3f} m"
 
 
+def _utc_minute(t) -> str:
+    return np.datetime_as_string(np.datetime64(t, "m")).replace("T", " ") + " UTC"
+
+
 def probe_finding_text(finding: str, figures: dict) -> str:
     """One line on a probe record's readings (``ProbeAnalysis.findings``)."""
     if finding == "too_few_readings":
         return "too few distinct probe readings to tell wet from dry; immersion unknown"
     if finding == "not_bimodal":
-        return (f"probe readings not clearly bimodal (separation {figures['score']:.2f} < "
-                f"{figures['cutoff']:.2f}): fouled, buried or failed probe? immersion flagged suspect")
+        return (f"probe readings not clearly in two groups (separation {figures['score']:.1f} < "
+                f"{figures['cutoff']:.1f}): fouled, buried or failed probe? immersion flagged suspect")
+    if finding == "one_state_rare":
+        return (f"probe readings held {figures['state']} for only {figures['held']} samples (at least "
+                f"{figures['minimum']} needed): a stuck probe with spikes cannot be told from a working one; "
+                "immersion flagged suspect")
+    if finding == "unreliable_period":
+        days = (np.datetime64(figures["end"], "s") - np.datetime64(figures["start"], "s")) / np.timedelta64(86400, "s")
+        what = ("water readings sagging toward the air level" if figures["kind"] == "fouled"
+                else "readings stuck near the air level")
+        basis = "against the tide reference" if figures["reference"] else "from the readings alone"
+        grade = "fail" if figures["flag"] == FAIL else "suspect"
+        return (f"probe {figures['kind']} from {_utc_minute(figures['start'])} to {_utc_minute(figures['end'])} "
+                f"({days:.1f} days): {what} ({basis}); wetness immersion_quality flagged {grade} there, "
+                "the state is kept as classified")
     if finding == "threshold_differs":
         return (f"automatic wet/dry threshold {figures['threshold']:.4g} differs from the air/water reference "
                 f"midpoint {figures['midpoint']:.4g} by more than {figures['tolerance']:.0%} of their distance; "

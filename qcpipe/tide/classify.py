@@ -1,4 +1,4 @@
-"""Immersion state from a wet/dry probe's readings: threshold, bimodality, hysteresis.
+"""Immersion state from a wet/dry probe's readings: threshold, separation of the two classes, hysteresis.
 
 States are int8 (:data:`qcpipe.arrays.EMERSED` 0, ``IMMERSED`` 1, ``UNKNOWN`` 2). Times are
 numpy datetime64 (any unit) or int64 nanoseconds since 1970-01-01, UTC; durations in seconds.
@@ -10,19 +10,27 @@ would give ([CRC]_, from memory); so the threshold is learnt from each record (O
 References
 ----------
 .. [Otsu1979] See ``docs/references.md``, key Otsu1979.
+.. [Ashman1994] See ``docs/references.md``, key Ashman1994.
+.. [RousseeuwCroux1993] See ``docs/references.md``, key RousseeuwCroux1993.
 .. [CRC] See ``docs/references.md``, key CRC.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 
 from .. import arrays as v
 from ..arrays import NS, UNKNOWN, series
 
-#: Below this :func:`bimodality_score` a probe is "not clearly bimodal".
+#: Below this :func:`bimodality_score` a sample is "not clearly bimodal" (Otsu's eta; kept as a
+#: record: the probe verdict uses :func:`class_separation`, which does not depend on how rare a state is).
 BIMODALITY_CUTOFF = 0.9
-
+#: Below this :attr:`ClassSeparation.separation` (Ashman's D) the two classes are not clearly apart.
+SEPARATION_CUTOFF = 6.0
+#: Scale of the median absolute deviation to a normal standard deviation, 1 / Phi^-1(3/4) [RousseeuwCroux1993]_.
+MAD_TO_SD = 1.482602218505602
 
 
 def _finite(readings, func: str) -> np.ndarray:
@@ -125,6 +133,104 @@ def bimodality_score(readings, threshold: float) -> float:
         return 0.0
     sb = w0 * (1 - w0) * (float(x[~low].mean()) - float(x[low].mean())) ** 2
     return float(min(sb / total, 1.0))
+
+
+@dataclass(frozen=True)
+class ClassSeparation:
+    """The probe readings split in two classes at a threshold: robust levels and spreads, how far apart
+    the classes are, and how many readings of each class are held for more than one sample."""
+    low_level: float      # median of the finite readings below the threshold (NaN if none)
+    high_level: float     # median of the others
+    low_spread: float     # MAD_TO_SD * median absolute deviation of the low class
+    high_spread: float
+    separation: float     # Ashman's D from the levels and spreads; 0 if a class is empty, inf if both spreads are 0
+    n_low: int
+    n_high: int
+    n_low_held: int       # low readings in runs of at least two consecutive finite readings below the threshold
+    n_high_held: int
+
+    @property
+    def fewest_held(self) -> int:
+        """Held readings of the rarer class: the evidence that the probe shows two states at all."""
+        return min(self.n_low_held, self.n_high_held)
+
+
+def _median_and_spread(x: np.ndarray) -> tuple[float, float]:
+    if x.size == 0:
+        return float("nan"), float("nan")
+    m = float(np.median(x))
+    return m, MAD_TO_SD * float(np.median(np.abs(x - m)))
+
+
+def held_count(side: np.ndarray) -> int:
+    """Number of True entries of `side` that have a True neighbour (runs of two or more). O(n)."""
+    side = np.asarray(side, dtype=bool)
+    if side.size < 2:
+        return 0
+    pair = side[1:] & side[:-1]
+    held = np.zeros(side.size, dtype=bool)
+    held[1:] |= pair
+    held[:-1] |= pair
+    return int(np.count_nonzero(held))
+
+
+def class_separation(readings, threshold: float) -> ClassSeparation:
+    r"""How far apart the two classes of probe readings are, whatever their sizes.
+
+    Parameters
+    ----------
+    readings : array_like of float, shape (n,)
+        Probe readings in time order; NaN and infinite values are dropped (the
+        finite readings on either side of a gap count as consecutive).
+    threshold : float
+        Reading that splits the classes (e.g. :func:`otsu_threshold`), in the unit of `readings`.
+
+    Returns
+    -------
+    ClassSeparation
+
+    Notes
+    -----
+    Ashman's D [Ashman1994]_ between the classes, with the median :math:`m_k` as
+    level and :math:`s_k = 1.4826\,\mathrm{MAD}_k` as spread ([RousseeuwCroux1993]_;
+    robust to the few readings taken while the probe wets or drains):
+
+    .. math:: D = \sqrt{2}\,|m_1 - m_0| / \sqrt{s_0^2 + s_1^2}
+
+    Unlike Otsu's :math:`\eta` (:func:`bimodality_score`), D does not fall when one
+    class is rare: :math:`\eta = \omega_0\omega_1\Delta^2 / (\omega_0\omega_1\Delta^2 +
+    \sigma_W^2)` goes to 0 with the smaller class fraction, so a healthy probe wet
+    0.5 % of the time scored about 0.8, below the 0.9 cutoff.
+
+    Cutoff :data:`SEPARATION_CUTOFF` = 6: two normal classes of equal spread
+    reach it when their means are 6 standard deviations apart (the separation at
+    which the previous eta cutoff of 0.9 was met by two equal classes). Ashman et al.
+    ask D > 2 for a clean separation of a fitted two-normal mixture; a hard split
+    at a threshold truncates each class and shrinks its spread, so unimodal
+    samples reach larger values here: 2.3 for a normal sample, 2.7 for a uniform
+    one, about 3.6 for a lognormal one with sigma = 1 (simulated, n = 200000;
+    tests/tide/test_immersion.py checks the normal value analytically). Hence 6,
+    not 2 (derived here, not from a published source). A working probe is
+    separated by tens (noise of a few pF on a 0.1 nF step).
+
+    The rare class's size is kept apart: ``n_*_held`` counts readings in runs of
+    two or more on their side of the threshold, because a lone reading (a spike)
+    is no evidence of a state (common practice, no source). O(n) (medians by
+    selection).
+    """
+    func = "class_separation"
+    x = _finite(readings, func)
+    threshold = v.real_number(threshold, func=func, name="threshold")
+    low = x < threshold
+    m0, s0 = _median_and_spread(x[low])
+    m1, s1 = _median_and_spread(x[~low])
+    n0, n1 = int(np.count_nonzero(low)), int(np.count_nonzero(~low))
+    if n0 == 0 or n1 == 0:
+        d = 0.0
+    else:
+        spread = float(np.hypot(s0, s1))
+        d = float("inf") if spread == 0 else float(np.sqrt(2.0) * abs(m1 - m0) / spread)
+    return ClassSeparation(m0, m1, s0, s1, d, n0, n1, held_count(low), held_count(~low))
 
 
 def _run_starts(s: np.ndarray) -> np.ndarray:

@@ -107,6 +107,20 @@ def test_rule_errors(tmp_path, old, new, key, words):
     assert words in msg and "\n" not in msg
 
 
+@pytest.mark.parametrize("immersion, key, words", [
+    ("min_bimodality = 0.9", "immersion", "replaced by min_separation"),
+    ("level_band = 0.1\nmax_level_shift = 0.1", "immersion", "must be below level_band"),
+    ('health_window = 24', "immersion.health_window", "'24 min'"),
+    ("min_window_samples = 0", "immersion.min_window_samples", "greater than or equal to 1"),
+], ids=["renamed-key", "shift-beyond-band", "number-duration", "no-samples"])
+def test_immersion_errors(tmp_path, immersion, key, words):
+    with pytest.raises(ConfigError) as info:
+        load(tmp_path, load_rules, RULES + "[immersion]\n" + immersion + "\n", "rules.toml")
+    msg = str(info.value)
+    assert msg.startswith(f"{tmp_path / 'rules.toml'}: key {key}"), msg
+    assert words in msg and "\n" not in msg
+
+
 @pytest.mark.parametrize("old, new, key, words", [
     ('delimiter = ";"', 'delimiter = ";;"', "layout.probe.delimiter", "one character"),
     ('units = "count"', 'units = "blorps"', "layout.probe.variables.probe_reading.units", "unknown unit 'blorps'"),

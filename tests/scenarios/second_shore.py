@@ -491,7 +491,7 @@ immersion_consistency = { margin_m = 0.15, fail_after = "45 min" }
 [immersion]
 hysteresis_fraction = 0.1
 min_state = "10 min"
-min_bimodality = 0.9
+min_separation = 6.0
 
 [tide_timing]
 clock_error_threshold = "20 min"

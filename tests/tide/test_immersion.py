@@ -2,7 +2,8 @@
 
 Outside references: skimage.filters.threshold_otsu (scikit-image) for the Otsu
 threshold; analytical values of Otsu's separability for a normal (2/pi) and a
-uniform (3/4) sample; scipy.constants.epsilon_0 (CODATA) for the capacitor;
+uniform (3/4) sample; scipy.stats.halfnorm for the robust separation (Ashman's D)
+of a normal sample split at its mean; scipy.constants.epsilon_0 (CODATA) for the capacitor;
 hand-worked state sequences. Typical probe readings 0.06 nF dry and 0.17 nF wet
 are common practice, no source; water's relative permittivity of about 80 at
 20 degC is from the CRC Handbook of Chemistry and Physics (from memory).
@@ -11,12 +12,18 @@ are common practice, no source; water's relative permittivity of about 80 at
 import numpy as np
 import pytest
 import scipy.constants
+import scipy.optimize
+import scipy.stats
 from skimage.filters import threshold_otsu
 
 from qcpipe.tide.classify import (
     BIMODALITY_CUTOFF,
+    MAD_TO_SD,
+    SEPARATION_CUTOFF,
     bimodality_score,
+    class_separation,
     classify_immersion,
+    held_count,
     otsu_threshold,
 )
 from qcpipe.tide.exposure import daily_exposure, exposure_periods, immersion_at, transitions
@@ -123,6 +130,76 @@ def test_bimodality_score_by_hand():
     assert bimodality_score([0, 1, 2, 3, np.nan], 1.5) == pytest.approx(0.8)
     assert bimodality_score([0, 1, 2, 3], 10.0) == 0.0  # one class empty
     assert bimodality_score([0, 1], np.nan) == 0.0
+
+
+# --- separation of the two classes (Ashman's D, robust) -----------------------
+
+
+def test_mad_scale_is_the_normal_quartile():
+    # 1 / Phi^-1(3/4): the MAD of a normal sample is 0.6745 sigma (Rousseeuw and Croux 1993)
+    assert MAD_TO_SD == pytest.approx(1 / scipy.stats.norm.ppf(0.75), rel=1e-12)
+
+
+def test_separation_of_a_normal_sample_split_at_its_mean_is_analytical():
+    # Each half is a half-normal: median m = sigma * halfnorm.ppf(1/2), MAD d solves
+    # F(m + d) - F(m - d) = 1/2 with F the half-normal cdf (scipy.stats.halfnorm). So
+    # D = sqrt(2) * 2m / sqrt(2 (1.4826 d)^2) = 2m / (1.4826 d), about 2.3: far below the cutoff.
+    m = scipy.stats.halfnorm.ppf(0.5)
+    d = scipy.optimize.brentq(lambda d: scipy.stats.halfnorm.cdf(m + d) - scipy.stats.halfnorm.cdf(m - d) - 0.5,
+                              1e-6, 3.0)
+    expected = 2 * m / (MAD_TO_SD * d)
+    x = np.random.default_rng(3).normal(0.115, 0.01, 400000)
+    got = class_separation(x, 0.115).separation
+    assert got == pytest.approx(expected, rel=0.02)           # sampling error of medians, n = 400000
+    assert got < SEPARATION_CUTOFF / 2
+
+
+@pytest.mark.parametrize("k", [8.0, 12.0])
+@pytest.mark.parametrize("rare", [0.5, 0.05, 0.005], ids=["half", "5%", "0.5%"])
+def test_separation_of_two_normal_classes_does_not_depend_on_how_rare_one_is(k, rare):
+    # Two normal classes of equal sigma, means k sigma apart, split half-way: D = k (Ashman et al.
+    # 1994, equal spreads), whatever the classes' sizes; Otsu's eta falls with the rarer share.
+    # (Closer classes are not tested: the large class's tail beyond the split then lands in a rare
+    # class and widens it, e.g. k = 4 with 5 %: D = 2.8; those readings are not separable anyway.)
+    rng = np.random.default_rng(int(k * 10 + rare * 1000))
+    n = 200000
+    x = np.concatenate([rng.normal(0.0, 1.0, n), rng.normal(k, 1.0, int(n * rare))])
+    # tolerance: truncation at k/2 shortens each class by Phi(-k/2) (0.02 at k = 4), plus sampling error
+    assert class_separation(x, k / 2).separation == pytest.approx(k, rel=0.1)
+
+
+def test_rare_wet_probe_passes_and_stuck_probe_with_spikes_does_not():
+    # Issue 13 section 3: the rarity of a state no longer lowers the verdict, and a stuck probe's lone
+    # spikes do not count as a state. Readings as probe_readings above; 4032 samples = 28 days at 10 min.
+    rng = np.random.default_rng(8)
+    n = 4032
+    truth = np.zeros(n, bool)
+    for s in range(100, n, 400):                       # ten immersions of two samples: 0.5 % wet
+        truth[s:s + 2] = True
+    rare = probe_readings(truth, rng)
+    c = class_separation(rare, otsu_threshold(rare))
+    assert bimodality_score(rare, otsu_threshold(rare)) < BIMODALITY_CUTOFF     # the old verdict failed it
+    assert c.separation > SEPARATION_CUTOFF and c.fewest_held == 20
+    stuck = probe_readings(np.zeros(n, bool), rng)
+    stuck[np.arange(50, n, 500)] = WATER_READING_NF    # eight lone spikes at the water level
+    s = class_separation(stuck, otsu_threshold(stuck))
+    assert s.separation > SEPARATION_CUTOFF            # tight spikes: the separation alone would pass it
+    assert s.fewest_held == 0 and s.n_high == 8        # but none is held: no second state
+
+
+def test_held_count_by_hand():
+    assert held_count([1, 0, 1, 1, 0, 1, 1, 1, 0]) == 5
+    assert held_count([1]) == 0 and held_count([]) == 0
+    assert held_count([0, 1, 0, 1, 0]) == 0
+
+
+def test_class_separation_edge_cases():
+    assert class_separation([0.0, 0.0, 1.0, 1.0], 0.5).separation == np.inf      # both spreads zero
+    assert class_separation([0.0, 0.1, 0.2], 5.0).separation == 0.0               # one class empty
+    c = class_separation([0.0, np.nan, 0.0, 1.0, 1.0, 1.0], 0.5)
+    assert (c.n_low, c.n_high, c.n_low_held, c.n_high_held) == (2, 3, 2, 3)       # NaN dropped
+    with pytest.raises(ValueError, match="threshold"):
+        class_separation([0.0, 1.0], float("nan"))
 
 
 # --- the capacitor -------------------------------------------------------------
