@@ -4,6 +4,7 @@
     qcpipe holdings  --workspace W      list what the archive holds
     qcpipe check     --workspace W      check register, layouts and rule set; process nothing
     qcpipe rerun     --workspace W      re-QC what changed (or --deployment D) from stored data
+    qcpipe apply-clock --workspace W D --by NAME   write a confirmed clock correction, re-run from raw files
     qcpipe diff      --workspace W D    flag changes between two versions of a deployment's dataset
     qcpipe lineage   --workspace W D    which raw files, rules and code made a deployment's dataset
     qcpipe audit     --workspace W      catalog accounting and SHA-256 fixity of the whole archive
@@ -55,6 +56,24 @@ def _parser() -> argparse.ArgumentParser:
     sp.add_argument("-d", "--deployment", action="append", help="re-QC this deployment (repeatable)")
     sp.add_argument("--dask", metavar="ADDRESS", help="spread the work over this Dask cluster (needs PREFECT_API_URL)")
     sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome")
+    sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
+
+    sp = sub.add_parser("apply-clock", help="write a confirmed clock correction into the register and re-run "
+                        "the deployment (or its station's loggers) from the archived raw files")
+    ws(sp)
+    sp.add_argument("deployment", help="deployment whose latest dataset's clock verdict gives the correction")
+    sp.add_argument("--by", required=True, metavar="NAME", help="who confirms the correction (recorded)")
+    sp.add_argument("--station", action="store_true", help="also correct every other deployment of its station "
+                    "that overlaps it in time (loggers that shared the error)")
+    sp.add_argument("--seconds", type=float, metavar="S", help="the correction to write, seconds the logger "
+                    "times are ahead of true time (default: from the suspected clock verdict)")
+    sp.add_argument("--replace", action="store_true", help="replace a correction already in the register "
+                    "(the new one is the total correction)")
+    sp.add_argument("--yes", action="store_true", help="do not ask for confirmation")
+    sp.add_argument("--register-only", action="store_true", help="write the register and stop; the next "
+                    "'qcpipe rerun' or 'qcpipe process' reads the raw files again")
+    sp.add_argument("--dask", metavar="ADDRESS", help="spread the work over this Dask cluster (needs PREFECT_API_URL)")
+    sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome of the re-run")
     sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
 
     sp = sub.add_parser("diff", help="flag changes between two versions of a deployment's dataset")
@@ -164,6 +183,37 @@ def _rerun(args) -> int:
         where = f"Dask cluster {args.dask}" if args.dask else "Prefect, local mode"
         print(f"qcpipe: re-running QC in archive {ws.archive} ({where})", flush=True)
     _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask), args.quiet)
+    return 0
+
+
+def _apply_clock(args) -> int:
+    from .pipeline import load_context
+    from .pipeline.clock_fix import plan_clock_correction, write_clock_correction
+    from .report.words import clock_plan_lines
+
+    ws = _prepare_flow(args)          # the archive's lock is held from here: no run reads the register meanwhile
+    ctx = _context(args)
+    plan = plan_clock_correction(ctx, args.deployment, confirmed_by=args.by, station=args.station,
+                                 seconds=args.seconds, replace=args.replace)
+    print("\n".join(clock_plan_lines(plan)), flush=True)
+    if not args.yes:
+        try:
+            answer = input("write this correction into the register and re-run? [y/N] ")
+        except EOFError:
+            answer = ""
+        if answer.strip().lower() not in ("y", "yes"):
+            print("qcpipe: not confirmed; nothing written")
+            return 1
+    write_clock_correction(ctx, plan)
+    print(f"qcpipe: clock_correction written to {plan.register} for {', '.join(plan.deployments)}", flush=True)
+    if args.register_only:
+        print("qcpipe: run 'qcpipe rerun' to read their raw files again with the correction")
+        return 0
+    from .flows.rerun import rerun_flow_for
+
+    load_context(ws.path)             # the edited register is valid before the orchestrator starts
+    flow = rerun_flow_for(args.dask)
+    _print_summary(_run_with_progress(args, flow, str(ws.path), plan.deployments, args.dask), args.quiet)
     return 0
 
 
@@ -348,7 +398,7 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule,
                "rerun": _rerun, "diff": _diff, "lineage": _lineage, "audit": _audit,
-               "package": _package}[args.command]
+               "package": _package, "apply-clock": _apply_clock}[args.command]
     try:
         return handler(args)
     except QcpipeError as err:

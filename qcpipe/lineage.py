@@ -1,7 +1,7 @@
 """What a dataset was made from, as content hashes: the basis of targeted re-runs.
 
 * the *ingest key* of a deployment covers what turns its raw files into the
-  pre-QC store (its time window, clock offset and checks, its layout): when it
+  pre-QC store (its time window, clock offset, checks and confirmed correction, its layout): when it
   changes, the raw files are read again;
 * the *QC key* covers what turns the store into a dataset (the effective rules of
   its variables, the immersion and timing settings, its register entries, the
@@ -38,13 +38,23 @@ def _dump(model) -> dict:
     return model.model_dump(mode="json", by_alias=True)
 
 
+def _dump_deployment(dep) -> dict:
+    """A deployment's register entry; ``clock_correction`` only when it has one, so that keys made
+    before the entry existed stay the same."""
+    d = _dump(dep)
+    if d.get("clock_correction") is None:
+        d.pop("clock_correction", None)
+    return d
+
+
 def ingest_inputs(ctx, deployment_id: str) -> dict:
     """What the pre-QC store of a deployment depends on (besides its raw files)."""
     reg = ctx.register
     dep = reg.deployment_by_id(deployment_id)
     inst = reg.instrument_by_serial(dep.instrument)
-    d = _dump(dep)
-    clock = {k: d[k] for k in ("start", "end", "clock_offset", "clock_set", "clock_check")}
+    d = _dump_deployment(dep)
+    clock = {k: d[k] for k in ("start", "end", "clock_offset", "clock_set", "clock_check", "clock_correction")
+             if k in d}
     return {"deployment": clock, "instrument": _dump(inst), "layout": ctx.layouts.hashes.get(inst.layout)}
 
 
@@ -111,7 +121,7 @@ def qc_inputs(ctx, deployment_id: str) -> dict:
     return {**extra,
         "rules": rules,
         "rule_settings": {"immersion": _dump(ctx.rules.immersion), "tide_timing": _dump(ctx.rules.tide_timing)},
-        "register": {"deployment": _dump(dep), "station": _dump(station), "site": _dump(site),
+        "register": {"deployment": _dump_deployment(dep), "station": _dump(station), "site": _dump(site),
                      "instrument": _dump(inst)},
         "tide_constants_sha256": _file_sha256(reg.constituents_path(site.id)),
         "annotations": [a.as_dict() for a in ctx.annotations.for_station(station.id)],

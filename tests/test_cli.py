@@ -79,6 +79,6 @@ def test_schedule_without_server_is_one_line(demo_copy):
 
 
 def test_every_command_has_help():
-    for cmd in ["process", "holdings", "check", "schedule"]:
+    for cmd in ["process", "holdings", "check", "schedule", "apply-clock"]:
         r = run_cli(cmd, "--help")
         assert r.returncode == 0 and "--workspace" in r.stdout

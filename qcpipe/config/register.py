@@ -23,6 +23,9 @@ File format (TOML, our own)::
     # longest step between barometer samples interpolated across ("2 h" by default);
     # vented = true: the logger measures gauge pressure, nothing is subtracted
     pressure = { vented = true, salinity = 34.0 }
+    # a confirmed clock correction (written by 'qcpipe apply-clock'): the logger's times were
+    # shift_s seconds ahead of true time after clock_offset and the clock check; ingest subtracts it
+    clock_correction = { shift_s = 3600.0, confirmed_by = "A. Reviewer", confirmed_on = 2026-11-02, verdict = "...", evidence = "kc-mid-probe-2026-09 v001" }
 """
 
 from __future__ import annotations
@@ -119,6 +122,39 @@ class ClockCheck(_Strict):
         return _in_years(v, "reference_time")
 
 
+#: the largest clock correction accepted (seconds); more is a date or clock_offset mistake
+MAX_CLOCK_CORRECTION_S = 86400.0
+
+
+class ClockCorrection(_Strict):
+    """A clock error confirmed by a person (the deployment's ``clock_correction`` table).
+
+    ``shift_s`` is how far the logger's times are still ahead of true time after the
+    register's ``clock_offset`` and clock-check drift are applied (positive: ahead, the
+    sign of a probe's clock verdict); ingest subtracts it from every sample time.
+    """
+    shift_s: float = Field(description="logger time minus true time left after clock_offset and drift, s")
+    confirmed_by: str = Field(min_length=1, description="who confirmed the correction")
+    confirmed_on: dt.date = Field(description="when it was confirmed (a TOML date)")
+    verdict: str = Field("", description="the clock verdict the correction came from (text)")
+    evidence: str = Field("", description="the dataset the verdict was read from (deployment and version)")
+
+    @field_validator("shift_s")
+    @classmethod
+    def _size(cls, v: float) -> float:
+        if v == 0 or abs(v) > MAX_CLOCK_CORRECTION_S:
+            raise ValueError(f"shift_s must be non-zero and at most {MAX_CLOCK_CORRECTION_S:.0f} s in size; "
+                             "a larger error is a date or clock_offset mistake: correct those instead")
+        return v
+
+    @field_validator("confirmed_by")
+    @classmethod
+    def _named(cls, v: str) -> str:
+        if not v.strip():
+            raise ValueError("confirmed_by is empty; name the person who confirmed the correction")
+        return v
+
+
 class ProbeReference(_Strict):
     """Immersion-probe readings taken in air and in water (raw units)."""
     air: float
@@ -190,7 +226,7 @@ class Deployment(_Strict):
     probe_reference: ProbeReference | None = None
     pressure: PressureSettings | None = None
     ph_calibration: PhCalibration | None = None
-
+    clock_correction: ClockCorrection | None = None
 
     @field_validator("start", "end", "clock_set")
     @classmethod
@@ -224,6 +260,11 @@ class Deployment(_Strict):
                 raise ValueError(f"clock_check implies a clock drift of {per_day:.0f} s per day since clock_set, more "
                                  f"than {MAX_DRIFT_S_PER_DAY:.0f}; check clock_offset and the clock check times")
         return self
+
+    @property
+    def correction_seconds(self) -> float:
+        """The confirmed clock correction subtracted from the UTC times (0 without one)."""
+        return 0.0 if self.clock_correction is None else float(self.clock_correction.shift_s)
 
     @property
     def offset_seconds(self) -> float:
@@ -294,6 +335,12 @@ class Register(_Strict):
     def deployments_of(self, serial: str) -> list[Deployment]:
         return [d for d in self.deployment if d.instrument == serial]
 
+    def station_companions(self, dep_id: str) -> list[str]:
+        """The other deployments of a deployment's station that overlap it in time (sorted ids)."""
+        dep = self.deployment_by_id(dep_id)
+        return sorted(d.id for d in self.deployment
+                      if d.station == dep.station and d.id != dep.id and d.start < dep.end and d.end > dep.start)
+
     def kind_of(self, dep_id: str) -> str:
         """The instrument kind of a deployment (``immersion_probe``, ``pressure``, ``barometer``, ...)."""
         return self.instrument_by_serial(self.deployment_by_id(dep_id).instrument).kind
@@ -324,5 +371,5 @@ def load_register(path: str | Path) -> LoadedRegister:
     return LoadedRegister(model, path, content_sha256(data))
 
 
-__all__ = ["Register", "Site", "Station", "Instrument", "Deployment", "ClockCheck",
+__all__ = ["Register", "Site", "Station", "Instrument", "Deployment", "ClockCheck", "ClockCorrection",
            "ProbeReference", "PressureSettings", "load_register", "LoadedRegister", "ConfigError"]

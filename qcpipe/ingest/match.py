@@ -46,12 +46,13 @@ def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_C
     register's ``clock_offset``; stamps the reader already put on UTC (the file
     said its zone) are not moved again.  Either way the drift measured by the
     deployment's clock check is removed: the check's ``logger_time`` is what the
-    logger's display showed, read with the register's ``clock_offset``.
+    logger's display showed, read with the register's ``clock_offset``.  Last, a
+    confirmed ``clock_correction`` is subtracted (:func:`_corrected`).
     """
     offset = dep.offset_seconds if time_basis == LOGGER_CLOCK else 0.0
     t = utc_from_logger_time(logger_time, offset_s=offset)
     if dep.clock_check is None:
-        return t, 0.0
+        return _corrected(t, dep), 0.0
     check_logger = utc_from_logger_time(np.array([np.datetime64(dep.clock_check.logger_time, "ns")]),
                                         offset_s=dep.offset_seconds)[0]
     ref = np.datetime64(dep.clock_check.reference_time.replace(tzinfo=None) -
@@ -59,7 +60,18 @@ def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_C
     clock_set = dep.clock_set or dep.start
     t0 = np.datetime64(clock_set.replace(tzinfo=None) - clock_set.utcoffset(), "ns")
     err = float((check_logger - ref).astype(np.int64)) / 1e9
-    return drift_corrected(t, clock_set=t0, check_logger=check_logger, check_reference=ref), err
+    return _corrected(drift_corrected(t, clock_set=t0, check_logger=check_logger, check_reference=ref), dep), err
+
+
+def _corrected(t: np.ndarray, dep: Deployment) -> np.ndarray:
+    """``t`` less the deployment's confirmed clock correction (register ``clock_correction.shift_s``), if any.
+
+    Applied after the offset and the drift, whatever the file's time basis: the
+    correction is an error a person confirmed in the times as they were read.
+    """
+    if dep.clock_correction is None:
+        return t
+    return utc_from_logger_time(t, offset_s=dep.correction_seconds)
 
 
 def _naive_utc(t) -> np.datetime64:

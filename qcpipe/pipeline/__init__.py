@@ -7,6 +7,7 @@ references  a deployment's site barometer, tide reference and station immersion 
 deployment  QC of one deployment into a new dataset version, in named steps
 plan        which deployments a run QCs, in dependency order
 run         the run sequence (nightly, re-run) on a runner: directly, or as Prefect tasks
+clock_fix   a confirmed clock correction: planned from the verdict, written to the register, re-run
 
 Nothing is dropped silently: every file ends archived or quarantined with a reason, and
 every count lands in the run's summary (:class:`qcpipe.report.model.RunSummary`).

@@ -12,16 +12,18 @@ import xarray as xr
 from .. import __version__, lineage, progress
 from ..archive.catalog import utc_now
 from ..archive.cf import add_air_pressure, add_source_variable, build_cf_dataset
-from ..archive.ncio import read_attrs, write_dataset_atomic
+from ..archive.ncio import read_attrs, read_dataset, write_dataset_atomic
 from ..checks import barometer_fallback_flags
 from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
 from ..derive import products as derived
 from ..files import copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
 from ..apply_rules import apply_rule_set, flag_counts
-from ..report.words import clock_verdict_text, elevation_text, no_reference_text, probe_finding_text
+from ..report.words import (clock_correction_text, clock_verdict_text, companion_clock_text, elevation_text,
+                            no_reference_text, probe_finding_text)
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
+from ..tide.companion import shares_error, step_lag
 from ..tide_reference import (IMMERSION_PROBE, IMMERSION_SOURCE_MEANINGS, IMMERSION_UNKNOWN, OBSERVED_GAUGE,
                               SOURCE_MEANINGS, SiteTide, immersion_source_from_reference, state_from_level)
 from .context import Context
@@ -68,6 +70,7 @@ def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedF
         return done
     p = convert(ctx, deployment_id, store or load_store(ctx, deployment_id), new_files)
     attach_immersion(ctx, p, tide)
+    attach_companion_clock(ctx, p)
     flags, manual_notes = apply_rules(ctx, p)
     now = utc_now()
     ds, enc, version = build_dataset(ctx, p, flags, manual_notes, now)
@@ -213,6 +216,9 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
     history = (f"{now} qcpipe {__version__}: {len(store.sources)} raw file(s) merged ({counts.get('duplicates', 0)} "
                f"repeated records dropped, {counts.get('conflicts', 0)} conflicts kept and flagged), converted, QC "
                f"with rule set {ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
+    correction_attrs, correction_text = clock_correction_record(dep)
+    if correction_text:
+        history += f"; {correction_text}"
     if prev is not None and Path(prev["path"]).exists():
         history = f"{read_attrs(prev['path']).get('history', '')}\n{history}".strip()
     provenance = dict(rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=reg.sha256,
@@ -223,7 +229,8 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
                                        samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
                                        samples_removed_post_recovery_total=counts.get("post_recovery", 0),
                                        download_conflicts=counts.get("conflicts", 0),
-                                       raw_file_reading=json.dumps(store.file_provenance, sort_keys=True)))
+                                       raw_file_reading=json.dumps(store.file_provenance, sort_keys=True),
+                                       **correction_attrs))
     provenance["extra_attrs"]["qc_inputs_sha256"] = p.qc_key
     if prev is not None:
         provenance["previous_version"] = Path(prev["path"]).stem
@@ -354,8 +361,89 @@ def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_fil
     """QC the given deployments of one station in order (probe first), then its exposure products."""
     results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide, run_id=run_id)
                for d in deployment_ids]
+    note_companions(ctx, results)
     station = ctx.register.station_by_id(station_id)
     written = derived.write_exposure_products(ctx, station)
     if written and results:
         results[0].products.extend(written)
     return results
+
+
+# --- clock corrections and the loggers that share a probe's clock ------------------------------
+
+def clock_correction_record(dep) -> tuple[dict, str]:
+    """A deployment's confirmed clock correction as dataset attributes and a history sentence ({} and "" without)."""
+    if dep.clock_correction is None:
+        return {}, ""
+    c = dep.clock_correction.model_dump(mode="json")
+    attrs = {"clock_correction_applied_s": float(c["shift_s"]), "clock_correction_confirmed_by": c["confirmed_by"],
+             "clock_correction_confirmed_on": c["confirmed_on"], "clock_correction_verdict": c["verdict"],
+             "clock_correction_evidence": c["evidence"]}
+    return attrs, clock_correction_text(c)
+
+
+def _station_probe(ctx: Context, dep) -> tuple[object, dict] | None:
+    """The immersion-probe deployment of ``dep``'s station overlapping it in time, and its latest dataset row."""
+    reg = ctx.register
+    for d in reg.station_companions(dep.id):
+        if reg.kind_of(d) == "immersion_probe":
+            row = ctx.catalog.latest_dataset(d)
+            if row is not None and Path(row["path"]).exists():
+                return reg.deployment_by_id(d), row
+    return None
+
+
+def attach_companion_clock(ctx: Context, p: Prepared) -> None:
+    """A logger at a station whose probe's latest dataset has a suspected clock error: its own clock lag.
+
+    The times of the temperature record's largest steps are matched to the probe's
+    wet/dry transitions (:func:`qcpipe.tide.companion.step_lag`); the lag against them
+    plus the probe's transition offset is the logger's own clock error.  Recorded as
+    ``clock_companion_*`` attributes; nothing for probes, barometers and loggers without
+    temperature, nor at stations whose probe has no suspected clock error.
+    """
+    if p.store.kind in ("immersion_probe", "barometer"):
+        return
+    found = _station_probe(ctx, p.dep)
+    if found is None:
+        return
+    probe, row = found
+    ds = read_dataset(row["path"])
+    if int(ds.attrs.get("clock_error_suspected", 0) or 0) != 1:
+        return
+    probe_offset = float(ds.attrs.get("clock_transition_offset_s", float("nan")))
+    a = {"clock_companion_probe": f"{probe.id} v{row['version']:03d}"}
+    temp = p.conv.variables.get("temperature")
+    if temp is None or "transition_time" not in ds:
+        a.update(clock_companion_found=0, clock_companion_note="no temperature record or no probe transitions")
+    else:
+        lag = step_lag(p.store.time, temp, np.sort(ds["transition_time"].values.astype("datetime64[ns]")))
+        a.update(clock_companion_found=int(lag.found), clock_companion_steps_matched=lag.n_matched,
+                 clock_companion_transitions=lag.n_transitions, clock_companion_contrast=_r(lag.contrast, 2))
+        if lag.found:
+            a.update(clock_companion_step_lag_s=_r(lag.lag_s), clock_companion_lag_spread_s=_r(lag.spread_s),
+                     clock_companion_offset_s=_r(lag.lag_s + probe_offset),
+                     clock_companion_shares_probe_error=int(shares_error(lag.lag_s, probe_offset)))
+        else:
+            a["clock_companion_note"] = "no clear temperature steps at the probe's transitions"
+    p.tide_attrs.update({k: v for k, v in a.items() if v is not None})
+
+
+def _r(x: float, nd: int = 1) -> float | None:
+    return round(float(x), nd) if np.isfinite(x) else None
+
+
+def note_companions(ctx: Context, results: list) -> None:
+    """Name the station's other loggers, with their own clock lags, in a probe's clock notice (in place)."""
+    for r in results:
+        i = next((i for i, n in enumerate(r.notices) if n.kind == "clock" and n.deployment == r.deployment), None)
+        if i is None:
+            continue
+        others = []
+        for d in ctx.register.station_companions(r.deployment):
+            row = ctx.catalog.latest_dataset(d)
+            attrs = read_attrs(row["path"]) if row is not None and Path(row["path"]).exists() else {}
+            others.append((d, {k: v for k, v in attrs.items() if k.startswith("clock_companion_")}))
+        n = r.notices[i]
+        r.notices[i] = Notice("clock", f"{n.text}; {companion_clock_text(r.deployment, others)}", n.station,
+                              n.deployment)

@@ -86,3 +86,65 @@ def no_reference_text(why: str) -> str:
     return (f"no tide reference: {why}; the probe's clock check, sensor-height check and tide-consistency check "
             "did not run (name published harmonic constants in the register, or add a water-level logger with "
             "at least 15 days of record)")
+
+
+def clock_correction_text(entry: dict) -> str:
+    """The history sentence of a dataset whose times carry a confirmed clock correction (register entry as a dict)."""
+    shift = float(entry["shift_s"])
+    out = (f"times moved {'back' if shift > 0 else 'forward'} by {abs(shift):.0f} s for a confirmed clock error "
+           f"(clock_correction shift_s = {shift:g}, confirmed by {entry['confirmed_by']} on {entry['confirmed_on']}")
+    if entry.get("evidence"):
+        out += f", from the clock verdict of {entry['evidence']}"
+    if entry.get("verdict"):
+        out += f": {entry['verdict']}"
+    return out + ")"
+
+
+def companion_clock_text(probe: str, companions: list[tuple[str, dict]]) -> str:
+    """What the station's other loggers say about a probe's suspected clock error.
+
+    ``companions``: (deployment, its ``clock_companion_*`` attributes, empty when no
+    lag could be estimated) for each of the station's other deployments.
+    """
+    parts = []
+    for dep, a in companions:
+        if not a or not int(a.get("clock_companion_found", 0) or 0):
+            why = a.get("clock_companion_note", "no step signal at the probe's transitions") if a else \
+                "no temperature record to time against the probe"
+            parts.append(f"{dep} (lag not estimated: {why})")
+            continue
+        shares = int(a.get("clock_companion_shares_probe_error", 0) or 0) == 1
+        parts.append(f"{dep} (temperature steps {_minutes(a['clock_companion_step_lag_s'])} from the probe's "
+                     f"transitions over {a['clock_companion_steps_matched']} of them: own clock about "
+                     f"{_minutes(a['clock_companion_offset_s'])} off, "
+                     f"{'shares the error' if shares else 'does not share the error'})")
+    if not parts:
+        return f"no other logger at the station of {probe}"
+    return ("these loggers at the station may share the error: " + "; ".join(parts) +
+            f"; to correct all that share it: qcpipe apply-clock {probe} --station --by NAME")
+
+
+def clock_plan_lines(plan) -> list[str]:
+    """What ``qcpipe apply-clock`` is about to write, for the person confirming it (a ClockCorrectionPlan)."""
+    shift = plan.shift_s
+    lines = [f"clock correction from {plan.evidence or plan.source}: {plan.verdict or 'no clock verdict (given by hand)'}"]
+    if plan.measured_s is not None:
+        lines.append(f"  measured transition offset {plan.measured_s:+.0f} s"
+                     + (f" on data already corrected by {plan.applied_s:+.0f} s" if plan.applied_s else ""))
+    lines.append(f"  correction: shift_s = {shift:g} (logger times {'ahead' if shift > 0 else 'behind'} by "
+                 f"{abs(shift):.0f} s; every sample time moves {'back' if shift > 0 else 'forward'} by that much)"
+                 + (f", {plan.why}" if plan.why else ""))
+    lines.append(f"  register {plan.register}: clock_correction set on {len(plan.deployments)} deployment(s):")
+    for d in plan.deployments:
+        old = plan.replaced.get(d)
+        notes = [f"replacing shift_s = {old:g}"] if old is not None else []
+        a = plan.companions.get(d) or {}
+        if int(a.get("clock_companion_found", 0) or 0):
+            shares = int(a.get("clock_companion_shares_probe_error", 0) or 0) == 1
+            notes.append(f"its temperature steps say its own clock is about "
+                         f"{_minutes(a['clock_companion_offset_s'])} off: "
+                         + ("shares the error" if shares else "does NOT share the error; check before confirming"))
+        lines.append(f"    {d}" + (f" ({'; '.join(notes)})" if notes else ""))
+    lines.append(f"  confirmed by {plan.confirmed_by} on {plan.confirmed_on}; then the deployments are re-run "
+                 "from their archived raw files")
+    return lines

@@ -98,9 +98,20 @@ def clock_verdict(
     )
     if not suspected:
         return ClockVerdict(off, spread, n, lag_s, False, None, min_n)
-    hours = int(round(off / 3600))
-    whole = hours if hours != 0 and abs(off - 3600 * hours) <= hour_tol else None
-    return ClockVerdict(off, spread, n, lag_s, True, whole, min_n)
+    return ClockVerdict(off, spread, n, lag_s, True, whole_hours_of(off, tolerance_s=hour_tol), min_n)
+
+
+def whole_hours_of(offset_s: float, *, tolerance_s: float = 300) -> int | None:
+    """The non-zero whole number of hours within ``tolerance_s`` of ``offset_s`` (s), else None.
+
+    ``round(offset_s / 3600)`` when it is not 0 and ``|offset_s - 3600 h| <= tolerance_s``:
+    an offset that close to whole hours is most likely a UTC-offset or daylight-saving
+    setting of the logger (common practice, no source).
+    """
+    if not np.isfinite(offset_s):
+        return None
+    hours = int(round(offset_s / 3600))
+    return hours if hours != 0 and abs(offset_s - 3600 * hours) <= tolerance_s else None
 
 
 def clock_error_estimate(
