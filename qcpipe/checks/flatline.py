@@ -111,9 +111,7 @@ def flat_line_flags(
         flags[ok] = grade(_run_durations(xf, tf, tolerance, delayed=mode == "delayed"),
                           suspect_ns, fail_ns, at_threshold=True)
         return flags
-    reached = [_stretch_reaches(xf, tf, tolerance, d, delayed=mode == "delayed")
-               for d in (suspect_ns, fail_ns)]
-    flags[ok] = np.where(reached[1], FAIL, np.where(reached[0], SUSPECT, PASS))
+    flags[ok] = _stretch_flags(xf, tf, tolerance, suspect_ns, fail_ns, delayed=mode == "delayed")
     return flags
 
 
@@ -132,33 +130,68 @@ def _run_durations(x: np.ndarray, t: np.ndarray, tolerance: float, *, delayed: b
     return t[last][run] - began
 
 
-def _stretch_reaches(x: np.ndarray, t: np.ndarray, tolerance: float, d_ns: int, *,
-                     delayed: bool) -> np.ndarray:
-    """True where a valid sample's values within `tolerance` last `d_ns` (see flat_line_flags).
+def _stretch_flags(x: np.ndarray, t: np.ndarray, tolerance: float, suspect_ns: int, fail_ns: int, *,
+                   delayed: bool) -> np.ndarray:
+    """Flags of valid samples for ``reference="current"`` (see flat_line_flags).
 
     Only samples of long runs can be flagged: values within `tolerance` of one
     value differ from one another by at most twice it, so each look-back and
-    look-ahead that reaches `d_ns` lies in a run of successive differences of at
-    most ``2 tolerance`` (plus rounding) lasting `d_ns`. The windows are taken
-    within those runs only (often a small part of the series).
+    look-ahead that reaches a duration lies in a run of successive differences
+    of at most ``2 tolerance`` (plus rounding) lasting that long. The windows are
+    taken within those runs only (usually a small part of the series), and only
+    in the runs whose values are not all within the tolerance of one another.
     """
     n = x.size
-    reached = np.zeros(n, dtype=bool)
     # a margin above 2 tolerance for the rounding of the differences (the filter may only keep more)
     wide = 2 * tolerance * (1 + 1e-9) + 8 * np.finfo(np.float64).eps * float(np.max(np.abs(x)))
     starts = np.ones(n, dtype=bool)
     step = np.diff(x)
     np.abs(step, out=step)
     np.greater(step, wide, out=starts[1:])
-    first = np.flatnonzero(starts)
-    last = np.append(first[1:] - 1, n - 1)
-    long_run = t[last] - t[first] >= d_ns
-    if not long_run.any():
+    began = np.where(starts, t, t[0])
+    np.maximum.accumulate(began, out=began)
+    lasted = np.subtract(t, began, out=began)     # time since the start of the sample's run
+    run = np.cumsum(starts)
+    flags = np.full(n, PASS, dtype=np.int8)
+    for code, d_ns in ((SUSPECT, suspect_ns), (FAIL, fail_ns)):
+        flags[_stretch_reaches(x, t, run, lasted, tolerance, d_ns, delayed=delayed)] = code
+    return flags
+
+
+def _stretch_reaches(x: np.ndarray, t: np.ndarray, run: np.ndarray, lasted: np.ndarray, tolerance: float,
+                     d_ns: int, *, delayed: bool) -> np.ndarray:
+    """True where a valid sample's values within `tolerance` last `d_ns`; `run`, `lasted`: the runs of
+    :func:`_stretch_flags` (ids non-decreasing, time since the run's start)."""
+    n = x.size
+    reached = np.zeros(n, dtype=bool)
+    tail = np.flatnonzero(lasted >= d_ns)
+    if tail.size == 0:
         return reached
-    keep = np.repeat(long_run, last - first + 1)
-    idx = np.flatnonzero(keep)
-    run = (np.cumsum(starts) - 1)[idx]
-    reached[idx] = _reaches_in_runs(x[idx], t[idx], run, tolerance, d_ns, delayed=delayed)
+    ids = run[tail]
+    ids = ids[np.flatnonzero(np.diff(ids, prepend=-1))]          # the long runs
+    first = np.searchsorted(run, ids, side="left")
+    size = np.searchsorted(run, ids, side="right") - first
+    # their samples, run after run
+    offset = np.cumsum(size) - size
+    where = np.arange(int(size.sum())) + np.repeat(first - offset, size)
+    # A long run whose values all lie within the tolerance of one another (a
+    # stuck sensor): every window inside it reaches, so in real time a sample
+    # reaches once the run has lasted d_ns, and in delayed mode the whole run is
+    # covered (the look-ahead from its first sample, the look-back from its last,
+    # and for the others either one of their own or the last sample's). The
+    # rounded max - min is >= every rounded difference (rounding is monotone).
+    bounds = np.empty(2 * ids.size, dtype=np.intp)
+    bounds[0::2], bounds[1::2] = first, first + size
+    bounds = bounds[:-1] if bounds[-1] == n else bounds
+    spread = np.maximum.reduceat(x, bounds)[0::2]
+    spread -= np.minimum.reduceat(x, bounds)[0::2]
+    flat = np.repeat(spread <= tolerance, size)
+    in_flat = where[flat]
+    reached[in_flat] = True if delayed else lasted[in_flat] >= d_ns
+    rough = where[~flat]
+    if rough.size:
+        labels = np.repeat(np.arange(ids.size), size)[~flat]
+        reached[rough] = _reaches_in_runs(x[rough], t[rough], labels, tolerance, d_ns, delayed=delayed)
     return reached
 
 
