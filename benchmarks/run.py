@@ -181,6 +181,29 @@ def _flags_like(series, value=1):
     return pd.Series(np.int8(value), index=series.index)
 
 
+def _reversed(s):
+    """The series backwards in time, on times t_last - t (ascending) so that trailing windows look ahead."""
+    import pandas as pd
+
+    t = s.index.asi8
+    return pd.Series(s.to_numpy()[::-1], index=pd.DatetimeIndex(t[-1] - t[::-1]) if t.size else s.index)
+
+
+def _flat_look_back(valid, window, tolerance):
+    """(reaches, start): look-backs of the default flat line on a series of valid values."""
+    import pandas as pd
+
+    x = valid.to_numpy()
+    pos = pd.Series(np.arange(x.size), index=valid.index)
+    start = pos.reindex(valid.index - window, method="ffill").to_numpy()     # NaN: none at or before t - D
+    has = ~np.isnan(start)
+    start = np.where(has, start, 0).astype(np.int64)
+    rolling = valid.rolling(window, closed="right")
+    high = np.maximum(rolling.max().to_numpy(), x[start])
+    low = np.minimum(rolling.min().to_numpy(), x[start])
+    return has & (high - x <= tolerance) & (x - low <= tolerance), start
+
+
 def pandas_check(name: str, data: dict, params: dict) -> np.ndarray:
     import pandas as pd
 
@@ -215,7 +238,12 @@ def pandas_check(name: str, data: dict, params: dict) -> np.ndarray:
         mean_of_neighbours = (rolling.sum() - s.fillna(0.0)) / k
         d = (s - mean_of_neighbours).abs()
         f = _flags_like(s).mask(d > p["suspect"], 3).mask(d > p["fail"], 4)
-        return f.mask(k < 2, 2).mask(~ok, 9).to_numpy()
+        # a neighbour on each side: valid samples in [t - h, t) and, on the
+        # reversed series, in (t, t + h] (the series has distinct times)
+        half = pd.Timedelta(seconds=p["half_window_s"])
+        before = s.rolling(half, closed="left").count().fillna(0).to_numpy()    # NaN for an empty window
+        after = _reversed(s).rolling(half, closed="left").count().fillna(0).to_numpy()[::-1]
+        return f.mask((k < 2) | (before == 0) | (after == 0), 2).mask(~ok, 9).to_numpy()
 
     if name == "rate_of_change":
         # Window (t - w, t), both ends open: a trailing time window with
@@ -232,14 +260,23 @@ def pandas_check(name: str, data: dict, params: dict) -> np.ndarray:
         return f.mask(s.isna(), 9).to_numpy()
 
     if name == "flat_line":
+        # The default: earlier values against the current one, delayed mode. A
+        # look-back reaches D where every valid value from the last one at or
+        # before t - D (reindex with ffill) to t is within the tolerance of x_t
+        # (trailing rolling max and min over (t - D, t]); the look-ahead is the
+        # same on the reversed series; a sample is flagged when a look-back or
+        # look-ahead that reaches D holds it (interval counts by cumulative sum).
         valid = s.dropna()
-        starts = valid.diff().abs().gt(p["tolerance"])
-        starts.iloc[:1] = True
-        run = starts.cumsum()
-        run_time = pd.Series(valid.index, index=valid.index)
-        lasted = (run_time - run_time.groupby(run.to_numpy()).transform("first")).dt.total_seconds()
-        f = _flags_like(valid).mask(lasted >= p["suspect_after_s"], 3).mask(lasted >= p["fail_after_s"], 4)
-        return f.reindex(index, fill_value=9).to_numpy()
+        flags = np.ones(valid.size, dtype=np.int8)
+        for code, seconds in ((3, p["suspect_after_s"]), (4, p["fail_after_s"])):
+            back, start = _flat_look_back(valid, pd.Timedelta(seconds=seconds), p["tolerance"])
+            ahead, end = _flat_look_back(_reversed(valid), pd.Timedelta(seconds=seconds), p["tolerance"])
+            ahead, end = ahead[::-1], valid.size - 1 - end[::-1]
+            opens = np.concatenate((start[back], np.flatnonzero(ahead)))
+            closes = np.concatenate((np.flatnonzero(back), end[ahead])) + 1
+            edges = np.bincount(opens, minlength=valid.size + 1) - np.bincount(closes, minlength=valid.size + 1)
+            flags[np.cumsum(edges[:-1]) > 0] = code
+        return pd.Series(flags, index=valid.index).reindex(index, fill_value=9).to_numpy()
 
     if name == "gap":
         valid = s.dropna()

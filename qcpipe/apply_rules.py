@@ -24,7 +24,8 @@ def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndar
     if rules.spike is not None:
         s = rules.spike
         out["spike"] = checks.spike_flags(values, times, half_window_s=s.half_window, suspect=s.suspect,
-                                          fail=s.fail, min_neighbours=s.min_neighbours)
+                                          fail=s.fail, min_neighbours=s.min_neighbours,
+                                          one_sided_edges=s.one_sided_edges)
     if rules.rate_of_change is not None:
         r = rules.rate_of_change
         out["rate_of_change"] = checks.rate_of_change_flags(values, times, window_s=r.window, n_sigma=r.n_sigma,
@@ -32,7 +33,8 @@ def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndar
     if rules.flat_line is not None:
         f = rules.flat_line
         out["flat_line"] = checks.flat_line_flags(values, times, tolerance=f.tolerance,
-                                                  suspect_after_s=f.suspect_after, fail_after_s=f.fail_after)
+                                                  suspect_after_s=f.suspect_after, fail_after_s=f.fail_after,
+                                                  reference=f.reference, mode=f.mode)
     if rules.gap is not None:
         out["gap"] = checks.gap_flags(times, values, max_gap_s=rules.gap.max_gap)
     return out

@@ -73,6 +73,20 @@ def count(value, *, func: str, name: str, minimum: int) -> int:
     return int(value)
 
 
+def one_of(value, *, func: str, name: str, allowed: tuple[str, ...]) -> str:
+    """`value` if it is one of the words `allowed`."""
+    if not isinstance(value, str) or value not in allowed:
+        raise ValueError(f"{func}: {name} = {value!r}; expected one of {', '.join(map(repr, allowed))}")
+    return value
+
+
+def flag(value, *, func: str, name: str) -> bool:
+    """`value` if it is True or False."""
+    if not isinstance(value, (bool, np.bool_)):
+        raise ValueError(f"{func}: {name} = {value!r}; expected True or False")
+    return bool(value)
+
+
 def duration_ns(seconds, *, func: str, name: str) -> int:
     """A duration given in seconds (> 0) as whole nanoseconds (rounded)."""
     seconds = positive(seconds, func=func, name=name)

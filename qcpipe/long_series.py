@@ -13,7 +13,13 @@ behind and ahead of the samples it finalises.  With ``overlap`` at least the
 longest window of the rules (:func:`required_overlap_s`) the flags equal those
 of an in-memory run at every sample: the checks look at most that far back or
 ahead, flat-line durations saturate at ``fail_after``, and the last valid
-sample before the buffer is kept so the gap check sees every gap.
+sample before the buffer is kept so the gap check sees every gap.  Runs and
+stretches of the flat-line check go on across missing values, so a sample
+waits for a valid sample ``overlap`` after the next valid one (the delayed
+flat line looks that far ahead), and the look-behind reaches ``overlap``
+before the last valid sample ``overlap`` back (a look-ahead from there may
+still cover the samples being finalised).  A long stretch of missing values
+is therefore held in memory until the next valid sample.
 :func:`core_qc_netcdf` applies it between NetCDF files, reading and writing slices
 through :mod:`qcpipe.archive.ncio`.
 """
@@ -90,8 +96,7 @@ def core_flags_in_chunks(blocks: Iterable[tuple[np.ndarray, np.ndarray]], rules:
             raise ValueError("blocks must be in time order and not overlap")
         buf_t = np.concatenate((buf_t, t))
         buf_v = np.concatenate((buf_v, np.asarray(values, dtype=np.float64)))
-        # samples whose look-ahead is complete: t <= t_last - overlap
-        upto = int(np.searchsorted(buf_t, buf_t[-1] - lap, side="right"))
+        upto = _look_ahead_complete(buf_t, buf_v, lap)
         out = finalise(upto)
         if out is not None:
             yield out
@@ -100,12 +105,30 @@ def core_flags_in_chunks(blocks: Iterable[tuple[np.ndarray, np.ndarray]], rules:
         yield out
 
 
+def _look_ahead_complete(t: np.ndarray, v: np.ndarray, lap: np.int64) -> int:
+    """Number of leading buffer samples whose flags no later sample can change.
+
+    The samples before the last valid sample at or before ``t_v - lap``, t_v the
+    time of the last valid sample: each has a valid sample after it at most that
+    late, and all samples up to ``lap`` beyond it are in the buffer (the delayed
+    flat line covers a sample from look-backs that end up to ``lap`` after the
+    next valid sample; the other checks look at most ``lap`` ahead).
+    """
+    valid = np.flatnonzero(np.isfinite(v))
+    if valid.size == 0:
+        return 0
+    k = int(np.searchsorted(t[valid], t[valid[-1]] - lap, side="right")) - 1
+    return int(valid[k]) if k >= 0 else 0
+
+
 def _look_behind_start(t: np.ndarray, v: np.ndarray, i: int, lap: np.int64) -> int:
     """First buffer index a sample at ``i`` (or later) may depend on.
 
     The last *valid* sample at or before ``t[i] - lap`` (runs and gaps are
     measured between valid samples, so the look-behind must reach a valid one),
-    and in any case the last valid sample before ``i``.
+    and in any case the last valid sample before ``i``; then ``lap`` further back
+    from there (a delayed flat-line look-ahead from a sample up to ``lap`` before
+    it can reach across a gap to ``i``).
     """
     j = int(np.searchsorted(t, t[i] - lap, side="right")) - 1
     valid = np.flatnonzero(np.isfinite(v[:max(j, 0) + 1])) if j >= 0 else np.empty(0, int)
@@ -113,7 +136,8 @@ def _look_behind_start(t: np.ndarray, v: np.ndarray, i: int, lap: np.int64) -> i
     before = np.flatnonzero(np.isfinite(v[:i]))
     if before.size:
         lo = min(lo, int(before[-1]))
-    return max(lo, 0)
+    lo = max(lo, 0)
+    return int(np.searchsorted(t, t[lo] - lap, side="left")) if lo < t.size else lo
 
 
 def core_qc_netcdf(source: str | Path, variable: str, rules: VariableRules, out: str | Path, *,

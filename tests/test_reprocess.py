@@ -50,14 +50,16 @@ def load(path):
 
 
 def spike_deviation(times, values, half_window_s):
-    """|x_i - mean of the other samples within +-half_window| by a plain loop (independent of qcpipe)."""
+    """|x_i - mean of the other samples within +-half_window| by a plain loop (independent of qcpipe);
+    NaN where a sample has fewer than 2 neighbours or none on one side (not evaluated)."""
     t = times.astype("datetime64[ns]").astype(np.int64)
     out = np.full(values.size, np.nan)
     for i in range(values.size):
         near = np.abs(t - t[i]) <= half_window_s * 1e9
         near[i] = False
         near &= np.isfinite(values)
-        if near.sum() >= 2 and np.isfinite(values[i]):
+        both_sides = near[:i].any() and near[i + 1:].any()
+        if near.sum() >= 2 and both_sides and np.isfinite(values[i]):
             out[i] = abs(values[i] - values[near].mean())
     return out
 

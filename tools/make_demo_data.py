@@ -472,8 +472,8 @@ def main(argv=None) -> int:
     faults.append(dict(kind="stuck_value", **base("TL7-20940"), variable="temperature",
                        start_utc=iso_z(lg.utc_s[i0]), end_utc=iso_z(lg.utc_s[i0 + n - 1]), n_samples=n,
                        value=stuck, flag=4, caught_by="flat_line",
-                       note="flat_line looks back: suspect (3) once the run has lasted suspect_after, "
-                            "fail (4) from fail_after on; the first samples of the run pass"))
+                       note="flat_line in delayed mode (the default): the whole run lasts longer than "
+                            "fail_after, so every sample of it fails (4), the first one included"))
 
     # --- out-of-range burst: pH at the sensor limit for 30 min
     lg = loggers["PHS-88A1"]

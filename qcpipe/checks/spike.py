@@ -18,6 +18,7 @@ def spike_flags(
     suspect: float,
     fail: float,
     min_neighbours: int = 2,
+    one_sided_edges: bool = False,
 ) -> np.ndarray:
     r"""Spike test: flag a value that stands far from the mean of its neighbours.
 
@@ -33,13 +34,19 @@ def spike_flags(
         Deviation thresholds in the unit of `values`; ``0 < suspect <= fail``.
     min_neighbours : int, default 2
         Fewest valid neighbours needed to evaluate a sample (>= 1).
+    one_sided_edges : bool, default False
+        Also evaluate a sample whose neighbours are all on one side of it (the
+        ends of the record, beside a gap longer than `half_window_s`). By
+        default such a sample is not evaluated (2): the published test needs a
+        neighbour on each side [QARTOD-TS2020]_.
 
     Returns
     -------
     numpy.ndarray of int8, shape (n,)
         4 where ``d_i > fail``, 3 where ``suspect < d_i <= fail``, 1 otherwise;
-        2 where the sample has fewer than `min_neighbours` neighbours; 9 where
-        the value is NaN or infinite.
+        2 where the sample has fewer than `min_neighbours` neighbours, or (unless
+        `one_sided_edges`) no neighbour before it or none after it; 9 where the
+        value is NaN or infinite.
 
     Notes
     -----
@@ -60,8 +67,18 @@ def spike_flags(
     while ``S / k_j <= suspect``. A tall spike in a narrow window therefore also
     flags its neighbours; a wider window (more neighbours) dilutes that.
 
-    Definition: common practice, no source. Cost O(n) whatever the window
-    (cumulative sums; see ``qcpipe.checks._windows``).
+    "Before" and "after" are by position in the series: a neighbour at the same
+    time as i is before it when it comes earlier in the arrays. A sample with
+    neighbours on one side only (the first and last samples, the samples beside
+    a gap) is compared with a one-sided mean, which follows the local slope
+    badly (a rising tide makes the first sample look like a spike); so by
+    default it is not evaluated, as the published test, which takes the
+    neighbour before and the one after each sample, leaves the first and last
+    samples unevaluated [QARTOD-TS2020]_ (from memory).
+
+    Definition: mean of the neighbours in a time window, common practice, no
+    source; the need for neighbours on both sides from [QARTOD-TS2020]_. Cost
+    O(n) whatever the window (cumulative sums; see ``qcpipe.checks.windows``).
     """
     func = "spike_flags"
     x, t, ok = series(values, times, func=func)
@@ -70,6 +87,7 @@ def spike_flags(
     fail = v.positive(fail, func=func, name="fail")
     v.ordered(suspect, fail, func=func, names=("suspect", "fail"), strict=False)
     min_neighbours = v.count(min_neighbours, func=func, name="min_neighbours", minimum=1)
+    one_sided_edges = v.flag(one_sided_edges, func=func, name="one_sided_edges")
 
     if x.size == 0:
         return np.full(x.shape, MISSING, dtype=np.int8)
@@ -90,6 +108,10 @@ def spike_flags(
         np.abs(d, out=d)
         f = grade(d, suspect, fail)
         f[k < min_neighbours] = NOT_EVALUATED
+        if not one_sided_edges:
+            one_side = c[b] == c[lo]                          # no valid sample in [start, i)
+            one_side |= c[hi] == c[b.start + 1:b.stop + 1]     # none in (i, stop)
+            f[one_side] = NOT_EVALUATED
         np.copyto(f, MISSING, where=~here)
         flags[b] = f
     return flags

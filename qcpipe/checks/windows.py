@@ -231,3 +231,76 @@ def previous_valid_index(ok: np.ndarray, c: np.ndarray | None = None) -> np.ndar
 def distinct_times(t: np.ndarray) -> bool:
     """True when no two samples share a time (then a zero-width window edge is the sample itself)."""
     return t.size < 2 or not np.equal(t[1:], t[:-1]).any()
+
+
+_SIGN = np.uint64(1 << 63)
+
+
+def order_keys(x: np.ndarray) -> np.ndarray:
+    """uint64 keys of float64 values in the same order as the values (finite values; -0.0 below 0.0).
+
+    The IEEE 754 bit pattern of a non-negative float, with its sign bit set, and
+    the complement of a negative float's pattern, sort as the values do (common
+    practice, no source). Exact: :func:`floats_from_keys` gives the values back.
+    """
+    u = np.ascontiguousarray(x, dtype=np.float64).view(np.uint64)
+    return np.where(u >= _SIGN, ~u, u | _SIGN)
+
+
+def floats_from_keys(keys: np.ndarray) -> np.ndarray:
+    """The float64 values of :func:`order_keys`."""
+    return np.where(keys >= _SIGN, keys ^ _SIGN, ~keys).view(np.float64)
+
+
+def segment_running_max(keys: np.ndarray, segment: np.ndarray) -> np.ndarray:
+    """Running maximum of uint64 `keys` restarted at each new segment (`segment`: non-decreasing ids from 0).
+
+    A segment's keys are lifted above every earlier segment's by putting the
+    segment id in the high bits, so that one :func:`numpy.maximum.accumulate`
+    restarts at each segment; the 64-bit keys leave no room for the id, so the
+    maximum is taken in two exact passes: the high 32 bits first, then the low
+    32 bits among the samples that hold the running high maximum (within each
+    stretch of constant running high maximum). Cost O(n).
+    """
+    n = keys.size
+    if n == 0:
+        return keys.copy()
+    if n >= 1 << 30:
+        raise ValueError(f"segment_running_max: {n} samples; at most 2**30 are supported")
+    seg = segment.astype(np.int64)
+    high = (keys >> np.uint64(32)).astype(np.int64)
+    lifted = seg << 32
+    lifted |= high
+    run_high = np.maximum.accumulate(lifted)
+    holds = lifted == run_high
+    stretch = np.empty(n, dtype=np.int64)
+    stretch[0] = 1
+    np.not_equal(run_high[1:], run_high[:-1], out=stretch[1:])
+    np.cumsum(stretch, out=stretch)
+    low = (keys & np.uint64(0xFFFFFFFF)).astype(np.int64)
+    low += 1
+    low *= holds
+    stretch <<= 33
+    stretch |= low
+    run_low = np.maximum.accumulate(stretch)
+    run_low &= (1 << 33) - 1
+    run_low -= 1
+    out = (run_high & 0xFFFFFFFF).astype(np.uint64) << np.uint64(32)
+    out |= run_low.astype(np.uint64)
+    return out
+
+
+def running_max_in_blocks(x: np.ndarray, block: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact maximum of finite `x` from the start of each sample's block to it, and from it to its block's end.
+
+    `block`: non-decreasing block ids from 0. The two running maxima are the
+    forward and backward passes of the van Herk / Gil-Werman sliding maximum
+    [vHe1992]_ [GW1993]_: a window that holds one block boundary is the end of
+    one block and the start of the next. Cost O(n).
+    """
+    if x.size == 0:
+        return x.copy(), x.copy()
+    keys = order_keys(x)
+    from_start = floats_from_keys(segment_running_max(keys, block))
+    to_end = floats_from_keys(segment_running_max(keys[::-1], block[-1] - block[::-1])[::-1])
+    return from_start, to_end

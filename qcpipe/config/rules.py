@@ -9,7 +9,7 @@ File format (TOML, our own)::
     gross_range = { sensor_min = -5, sensor_max = 45, expected_min = -2, expected_max = 38 }
     spike = { half_window = "30 min", suspect = 2.0, fail = 5.0 }
     rate_of_change = { window = "25 h", n_sigma = 5 }
-    flat_line = { tolerance = 0.001, suspect_after = "2 h", fail_after = "6 h" }
+    flat_line = { tolerance = 0.001, suspect_after = "2 h", fail_after = "6 h" }   # reference, mode optional
     gap = { max_gap = "45 min" }
     [[variable.temperature.climatology]]
     months = [12, 1, 2]; min = 2.0; max = 18.0
@@ -24,7 +24,7 @@ from __future__ import annotations
 import copy
 import math
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
@@ -115,6 +115,8 @@ class Spike(_Strict):
     suspect: float = Field(gt=0)
     fail: float = Field(gt=0)
     min_neighbours: int = Field(2, ge=1)
+    one_sided_edges: bool = Field(False, strict=True, description="also evaluate samples with neighbours "
+                                  "on one side only (record ends, beside gaps); else they are not evaluated")
 
     _d = field_validator("half_window", mode="before")(classmethod(lambda cls, v: _duration(v)))
 
@@ -137,6 +139,10 @@ class FlatLine(_Strict):
     tolerance: float = Field(ge=0)
     suspect_after: float
     fail_after: float
+    reference: Literal["current", "previous"] = Field("current", description="earlier values compared with "
+                                                      "the current one, or each value with the previous one")
+    mode: Literal["delayed", "real_time"] = Field("delayed", description="whole record at hand (a stuck "
+                                                  "stretch flagged from its first sample), or look back only")
 
     _d = field_validator("suspect_after", "fail_after", mode="before")(classmethod(lambda cls, v: _duration(v)))
 

@@ -6,10 +6,15 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from qcpipe.checks.windows import (
     _equal_run_edge,
     constant_windows,
+    floats_from_keys,
+    order_keys,
+    running_max_in_blocks,
     last_change_before_stop,
     previous_valid_index,
     running_sums,
@@ -102,3 +107,24 @@ def test_calendar_month_equals_numpy_datetime_fields():
     shuffled = rng.permutation(t)                   # the check does not need sorted times
     np.testing.assert_array_equal(calendar_month(shuffled),
                                   shuffled.astype("datetime64[ns]").astype("datetime64[M]").astype(np.int64) % 12 + 1)
+
+
+# --- running maxima within blocks (flat line) ----------------------------------
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.tuples(st.floats(allow_nan=False, allow_infinity=False, width=64), st.booleans()),
+                max_size=60))
+def test_running_max_in_blocks_matches_plain_loop(items):
+    # Values of any size and sign (-0.0, subnormals, 1e308); a True starts a new block.
+    x = np.array([v for v, _ in items], dtype=np.float64)
+    block = np.cumsum([new for _, new in items]).astype(np.int64)
+    np.testing.assert_array_equal(floats_from_keys(order_keys(x)).view(np.uint64), x.view(np.uint64))
+    from_start, to_end = running_max_in_blocks(x, block)
+    want_start, want_end = [], []
+    for i in range(x.size):
+        same = [j for j in range(x.size) if block[j] == block[i]]
+        want_start.append(max(x[j] for j in same if j <= i))
+        want_end.append(max(x[j] for j in same if j >= i))
+    np.testing.assert_array_equal(from_start, np.array(want_start, dtype=np.float64))
+    np.testing.assert_array_equal(to_end, np.array(want_end, dtype=np.float64))

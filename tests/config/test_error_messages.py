@@ -41,6 +41,7 @@ name = "r1"
 units = "degC"
 gross_range = { sensor_min = -5, sensor_max = 45, expected_min = -2, expected_max = 35 }
 spike = { half_window = "30 min", suspect = 2.0, fail = 5.0 }
+flat_line = { tolerance = 0.005, suspect_after = "3 h", fail_after = "6 h" }
 """
 
 LAYOUTS = """
@@ -65,6 +66,10 @@ def test_valid_files_load(tmp_path):
     assert reg.deployment[0].offset_seconds == 3600
     rules, _ = load(tmp_path, load_rules, RULES, "rules.toml")
     assert rules.for_variable("temperature").spike.half_window == 1800.0
+    # defaults of the edge and flat-line options: both neighbours, current value, delayed mode
+    assert rules.for_variable("temperature").spike.one_sided_edges is False
+    flat = rules.for_variable("temperature").flat_line
+    assert (flat.reference, flat.mode) == ("current", "delayed")
     lay, _ = load(tmp_path, load_layouts, LAYOUTS, "lay.toml")
     assert lay.layouts["probe"].reads("x.wet")
 
@@ -96,8 +101,14 @@ def test_register_errors(tmp_path, old, new, key, words):
     ('units = "degC"', 'units = "degF"', "variable.temperature.units", "must be in 'degC'"),
     ('[variable.temperature]', '[variable.temprature]', "variable.temprature", "unknown variable"),
     ('spike = {', 'spikes = {', "variable.temperature.spikes", "remove it or check its spelling"),
+    ('fail = 5.0 }', 'fail = 5.0, one_sided_edges = "yes" }', "variable.temperature.spike.one_sided_edges",
+     "valid boolean"),
+    ('fail_after = "6 h" }', 'fail_after = "6 h", reference = "successive" }',
+     "variable.temperature.flat_line.reference", "'current' or 'previous'"),
+    ('fail_after = "6 h" }', 'fail_after = "6 h", mode = "realtime" }', "variable.temperature.flat_line.mode",
+     "'delayed' or 'real_time'"),
 ], ids=["inverted-limits", "number-duration", "negative-duration", "fail-below-suspect", "units", "typo-var",
-        "typo-check"])
+        "typo-check", "one-sided-not-bool", "flat-reference", "flat-mode"])
 def test_rule_errors(tmp_path, old, new, key, words):
     assert old in RULES
     with pytest.raises(ConfigError) as info:
