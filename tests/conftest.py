@@ -83,9 +83,9 @@ def cf_tables(tmp_path_factory) -> dict:
     return paths
 
 
-def cf_check(path, cf_tables) -> None:
+def cf_check(path, cf_tables, *, allow_info: bool = True) -> None:
     """CF Checker (PyPI cfchecker) against CF-1.8 and the CF tables in tests/reference/cf:
-    no fatal errors, errors or warnings."""
+    no fatal errors, errors or warnings (and no INFO messages unless ``allow_info``)."""
     from cfchecker.cfchecks import CFChecker
 
     checker = CFChecker(cfStandardNamesXML=str(cf_tables["standard_names"]),
@@ -95,3 +95,4 @@ def cf_check(path, cf_tables) -> None:
     totals = checker.get_total_counts()
     assert totals["FATAL"] == 0 and totals["ERROR"] == 0, (Path(path).name, checker.all_messages)
     assert totals["WARN"] == 0, (Path(path).name, checker.all_messages)
+    assert allow_info or totals["INFO"] == 0, (Path(path).name, checker.all_messages)

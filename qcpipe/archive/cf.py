@@ -6,6 +6,11 @@ the instance dimension is omitted and instance variables are scalar), time
 in UTC as "seconds since 1970-01-01T00:00:00Z", a character station id with
 ``cf_role = timeseries_id``, latitude, longitude and the height of the
 sensing point above the site's vertical datum.
+
+The ACDD-1.3 block common to every NetCDF output (the datasets here, the derived
+products of :mod:`qcpipe.derive.products`) is :func:`acdd_attributes`, and the
+station's instance variables of a single-feature ``timeSeries`` are
+:func:`add_station_variables`.
 """
 
 from __future__ import annotations
@@ -78,6 +83,113 @@ def _duration_iso(seconds: float) -> str:
     return f"P{d}DT{h}H{m}M{s}S"
 
 
+#: the outputs' comment on their heights and their use (read with the site's datum name)
+SAFETY_NOTE = "Tide values are for data quality control only, not for navigation or safety planning."
+
+
+def time_coverage(times, end_times=None) -> dict:
+    """ACDD ``time_coverage_*`` of sample times (datetime64) as ISO 8601: first, last, span and median step.
+
+    ``end_times`` (optional) are the ends of the intervals that start at ``times``
+    (emersion periods, days): the coverage then runs to the latest end.
+    ``time_coverage_resolution`` is the median step between successive distinct
+    ``times`` (the step of a regular series; the typical spacing of irregular events).
+    """
+    t = np.unique(np.asarray(times, dtype="datetime64[ns]"))
+    if t.size == 0:
+        return {"time_coverage_start": "", "time_coverage_end": "", "time_coverage_duration": "P0D",
+                "time_coverage_resolution": "P0D"}
+    ends = np.asarray([] if end_times is None else end_times, dtype="datetime64[ns]")
+    ends = ends[~np.isnat(ends)]
+    last = max(t[-1], ends.max()) if ends.size else t[-1]
+    step = float(np.median(np.diff(t).astype(np.int64)) / 1e9) if t.size > 1 else 0.0
+    return {"time_coverage_start": _iso(t[0]), "time_coverage_end": _iso(last),
+            "time_coverage_duration": _duration_iso((last - t[0]).astype(np.int64) / 1e9),
+            "time_coverage_resolution": _duration_iso(step)}
+
+
+def acdd_attributes(*, info, station, site, title: str, summary: str, dataset_id: str, history: str, source: str,
+                    processing_level: str, times, date_created: str, feature_type: str | None,
+                    end_times=None, keywords: str = "intertidal, coastal, immersion, water level, sea water temperature, "
+                                    "quality control") -> dict:
+    """The ACDD-1.3 global attributes every qcpipe NetCDF output carries (datasets and derived products).
+
+    ``info`` is the register's ``[register]`` table (creator, publisher, institution,
+    license, acknowledgement, comment); ``station`` and ``site`` give the place:
+    ``geospatial_bounds`` is a WKT ``POINT (latitude longitude)`` in EPSG:4326 (ACDD-1.3's
+    default CRS and axis order), the vertical extent is the sensing point's height
+    above the site's datum. That datum is a local chart datum with no EPSG code, so
+    ``geospatial_bounds_vertical_crs`` is not written: ``vertical_datum`` and the
+    ``comment`` name it instead. ``times`` (datetime64; with ``end_times`` for intervals) give
+    ``time_coverage_*`` (:func:`time_coverage`);
+    ``feature_type`` is the CF discrete sampling geometry, None where CF has none.
+    """
+    publisher_name, publisher_email, publisher_url = info.publisher
+    datum = site.vertical_datum
+    comment = (f"Heights (geospatial_vertical_min/max and every height or water level variable) are metres "
+               f"above {datum}, a local chart datum of the site that has no EPSG code "
+               f"(so no geospatial_bounds_vertical_crs is given). {SAFETY_NOTE}")
+    attrs = {
+        "Conventions": "CF-1.8, ACDD-1.3",
+        "title": title,
+        "summary": summary,
+        "keywords": keywords,
+        "id": dataset_id,
+        "naming_authority": info.naming_authority,
+        "history": history,
+        "source": source,
+        "processing_level": processing_level,
+        "comment": f"{info.comment.strip()} {comment}".strip(),
+        "acknowledgement": info.acknowledgement or f"Data collected and processed by {publisher_name}.",
+        "license": info.license,
+        "standard_name_vocabulary": "CF Standard Name Table v83",
+        "date_created": date_created,
+        "creator_name": info.creator_name,
+        "creator_email": info.creator_email,
+        "creator_url": info.creator_url,
+        "institution": info.institution,
+        "publisher_name": publisher_name,
+        "publisher_email": publisher_email,
+        "publisher_url": publisher_url,
+        "project": info.name,
+        "geospatial_bounds": f"POINT ({station.latitude:.6f} {station.longitude:.6f})",
+        "geospatial_bounds_crs": "EPSG:4326",
+        "geospatial_lat_min": station.latitude, "geospatial_lat_max": station.latitude,
+        "geospatial_lat_units": "degrees_north",
+        "geospatial_lon_min": station.longitude, "geospatial_lon_max": station.longitude,
+        "geospatial_lon_units": "degrees_east",
+        "geospatial_vertical_min": station.elevation_m, "geospatial_vertical_max": station.elevation_m,
+        "geospatial_vertical_units": "m", "geospatial_vertical_positive": "up",
+        "vertical_datum": datum,
+        **time_coverage(times, end_times),
+        "station_id": station.id, "station_name": station.name, "site_id": site.id, "site_name": site.name,
+    }
+    if feature_type is not None:
+        attrs["featureType"] = feature_type
+        attrs["cdm_data_type"] = "Station"
+    return attrs
+
+
+def add_station_variables(ds: xr.Dataset, encoding: dict, station, site) -> str:
+    """The station's instance variables of a single-feature ``timeSeries`` (CF-1.8 section 9.2: the
+    instance dimension omitted, the variables scalar): ``station_id`` (``cf_role = timeseries_id``),
+    latitude, longitude and ``sensor_height`` above the site's datum. Returns them as the auxiliary
+    coordinates a data variable names (without its time)."""
+    ds["station_id"] = xr.DataArray(np.array(station.id.encode("ascii"), dtype=f"S{len(station.id)}"),
+                                    attrs=dict(cf_role="timeseries_id", long_name="station identifier"))
+    ds["latitude"] = xr.DataArray(np.float64(station.latitude), attrs=dict(
+        standard_name="latitude", long_name="station latitude (WGS84)", units="degrees_north", axis="Y"))
+    ds["longitude"] = xr.DataArray(np.float64(station.longitude), attrs=dict(
+        standard_name="longitude", long_name="station longitude (WGS84)", units="degrees_east", axis="X"))
+    ds["sensor_height"] = xr.DataArray(np.float64(station.elevation_m), attrs=dict(
+        long_name=f"height of the sensing point above {site.vertical_datum}", units="m", positive="up",
+        axis="Z", vertical_datum=site.vertical_datum))
+    encoding.update({"latitude": dict(_FillValue=None), "longitude": dict(_FillValue=None),
+                     "sensor_height": dict(_FillValue=None),
+                     "station_id": dict(dtype="S1", char_dim_name="name_strlen", _FillValue=None)})
+    return "latitude longitude sensor_height station_id"
+
+
 def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, station, site, deployment,
                      register_info, provenance: dict, version: int, history: str,
                      raw_units: dict | None = None) -> tuple[xr.Dataset, dict]:
@@ -107,23 +219,8 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
     ds = xr.Dataset(coords={"time": ("time", seconds, dict(
         standard_name="time", long_name="time of the sample (UTC)", axis="T",
         units="seconds since 1970-01-01T00:00:00Z", calendar="standard"))})
-    ds["station_id"] = xr.DataArray(np.array(station.id.encode("ascii"), dtype=f"S{len(station.id)}"),
-                                    attrs=dict(cf_role="timeseries_id", long_name="station identifier"))
-    ds["latitude"] = xr.DataArray(np.float64(station.latitude), attrs=dict(
-        standard_name="latitude", long_name="station latitude (WGS84)", units="degrees_north", axis="Y"))
-    ds["longitude"] = xr.DataArray(np.float64(station.longitude), attrs=dict(
-        standard_name="longitude", long_name="station longitude (WGS84)", units="degrees_east", axis="X"))
-    ds["sensor_height"] = xr.DataArray(np.float64(station.elevation_m), attrs=dict(
-        long_name=f"height of the sensing point above {site.vertical_datum}", units="m", positive="up",
-        axis="Z", vertical_datum=site.vertical_datum))
-    coord_names = "time latitude longitude sensor_height station_id"
-
-    encoding: dict = {
-        "time": dict(dtype="float64", _FillValue=None),
-        "latitude": dict(_FillValue=None), "longitude": dict(_FillValue=None),
-        "sensor_height": dict(_FillValue=None),
-        "station_id": dict(dtype="S1", char_dim_name="name_strlen", _FillValue=None),
-    }
+    encoding: dict = {"time": dict(dtype="float64", _FillValue=None)}
+    coord_names = "time " + add_station_variables(ds, encoding, station, site)
     chunk = int(min(max(n, 1), 65536))
     notes = provenance.get("notes", {})
 
@@ -158,56 +255,28 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
         encoding["immersion"] = dict(dtype="int8", _FillValue=None, zlib=True, complevel=4, chunksizes=(chunk,))
 
     now = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-    t0, t1 = (time[0], time[-1]) if n else (None, None)
-    step = float(np.median(np.diff(time).astype(np.int64)) / 1e9) if n > 1 else 0.0
     info = register_info
-    dataset_id = f"qcpipe_{station.id}_{deployment.id}_v{version:03d}"
     raw = provenance.get("raw_files", [])
     names = ", ".join(v for v in variables if v in VARIABLE_META)
-    ds.attrs = {
-        "Conventions": "CF-1.8, ACDD-1.3",
-        "featureType": "timeSeries",
-        "cdm_data_type": "Station",
-        "title": f"Quality-controlled logger series, station {station.id} ({station.name}), deployment {deployment.id}",
-        "summary": (f"Time series of {names} from instrument {deployment.instrument} at station {station.id} "
-                    f"({station.name}) of site {site.name}, sensing point {station.elevation_m:g} m above "
-                    f"{site.vertical_datum}. Converted from raw logger downloads to UTC with clock-drift "
-                    "correction, trimmed to the deployment, and flagged by automated QC checks with the IOC "
-                    "primary flag scheme (1 pass, 2 not evaluated, 3 suspect, 4 fail, 9 missing)."),
-        "keywords": "intertidal, coastal, immersion, water level, sea water temperature, quality control",
-        "id": dataset_id,
-        "naming_authority": info.naming_authority,
-        "history": history,
-        "source": f"{deployment.instrument} logger ({', '.join(sorted(set(r[0] for r in raw)))})" if raw else "logger",
-        "processing_level": "Level 1: converted to physical units, UTC, automated QC flags attached",
-        "license": info.license,
-        "standard_name_vocabulary": "CF Standard Name Table v83",
-        "date_created": now,
+    ds.attrs = acdd_attributes(
+        info=info, station=station, site=site, times=time, date_created=now, feature_type="timeSeries",
+        title=f"Quality-controlled logger series, station {station.id} ({station.name}), deployment {deployment.id}",
+        summary=(f"Time series of {names} from instrument {deployment.instrument} at station {station.id} "
+                 f"({station.name}) of site {site.name}, sensing point {station.elevation_m:g} m above "
+                 f"{site.vertical_datum}. Converted from raw logger downloads to UTC with clock-drift "
+                 "correction, trimmed to the deployment, and flagged by automated QC checks with the IOC "
+                 "primary flag scheme (1 pass, 2 not evaluated, 3 suspect, 4 fail, 9 missing)."),
+        dataset_id=f"qcpipe_{station.id}_{deployment.id}_v{version:03d}", history=history,
+        source=f"{deployment.instrument} logger ({', '.join(sorted(set(r[0] for r in raw)))})" if raw else "logger",
+        processing_level="Level 1: converted to physical units, UTC, automated QC flags attached")
+    ds.attrs.update({
         "date_modified": now,
-        "creator_name": info.creator_name,
-        "creator_email": info.creator_email,
-        "creator_url": info.creator_url,
-        "institution": info.institution,
-        "publisher_name": info.institution or info.creator_name,
-        "project": info.name,
         "platform": f"fixed station {station.id}",
         "instrument": deployment.instrument,
         "product_version": f"v{version:03d}",
-        "geospatial_lat_min": station.latitude, "geospatial_lat_max": station.latitude,
-        "geospatial_lat_units": "degrees_north",
-        "geospatial_lon_min": station.longitude, "geospatial_lon_max": station.longitude,
-        "geospatial_lon_units": "degrees_east",
-        "geospatial_vertical_min": station.elevation_m, "geospatial_vertical_max": station.elevation_m,
-        "geospatial_vertical_units": "m", "geospatial_vertical_positive": "up",
-        "time_coverage_start": _iso(t0) if n else "",
-        "time_coverage_end": _iso(t1) if n else "",
-        "time_coverage_duration": _duration_iso((time[-1] - time[0]).astype(np.int64) / 1e9) if n else "P0D",
-        "time_coverage_resolution": _duration_iso(step),
-        "station_id": station.id, "station_name": station.name, "site_id": site.id, "site_name": site.name,
         "deployment_id": deployment.id,
         "deployment_start": deployment.start.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "deployment_end": deployment.end.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        "vertical_datum": site.vertical_datum,
         "qcpipe_version": provenance["software_version"],
         "qc_rule_set": provenance["rules_name"],
         "qc_rule_set_sha256": provenance["rules_sha256"],
@@ -216,7 +285,7 @@ def build_cf_dataset(*, time, variables: dict, flags: dict, immersion=None, stat
         "raw_file_sha256": " ".join(r[1] for r in raw),
         "flag_scheme": "IOC Manuals and Guides 54, Vol. 3 (2013) primary flags; "
                        "aggregate = worst of fail > suspect > pass over the checks that ran",
-    }
+    })
     for key, value in provenance.get("extra_attrs", {}).items():
         ds.attrs[key] = value
     if "previous_version" in provenance:

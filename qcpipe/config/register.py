@@ -4,6 +4,9 @@ File format (TOML, our own)::
 
     [register]
     name = "..."                       # free text
+    institution, creator_name, creator_email, creator_url, license, naming_authority   # ACDD attributes
+    publisher_name, publisher_email, publisher_url   # optional: who distributes the outputs (default: the creator)
+    acknowledgement = "..."; comment = "..."          # optional: ACDD acknowledgement, comment on every output
     [[site]]
     id = "..."; name = "..."; vertical_datum = "..."
     tide_constituents = "tide/site.toml"   # optional harmonic constants (path relative to this file)
@@ -65,15 +68,40 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
+_EMAIL_RE = re.compile(r"^[^@\s]+@[^@\s]+\.[^@\s]+$")
+_URL_RE = re.compile(r"^https?://[^\s/]+\.[^\s]+$")
+
+
 class RegisterInfo(_Strict):
+    """The register's own table: who made the data and who publishes them (ACDD-1.3 attributes of every output)."""
     name: str
     description: str = ""
     institution: str = ""
     creator_name: str = ""
     creator_email: str = ""
     creator_url: str = ""
+    publisher_name: str = Field("", description="who distributes the outputs (default: institution, else creator)")
+    publisher_email: str = Field("", description="publisher's contact address (default: creator_email)")
+    publisher_url: str = Field("", description="publisher's web page (default: creator_url)")
+    acknowledgement: str = Field("", description="funding and support to acknowledge, on every output")
+    comment: str = Field("", description="a remark written into every output's comment")
     license: str = "CC-BY-4.0"
     naming_authority: str = "org.example.qcpipe"
+
+    @field_validator("publisher_email", "publisher_url")
+    @classmethod
+    def _address(cls, v: str, info) -> str:
+        pattern, what, example = ((_EMAIL_RE, "an e-mail address", "name@domain.org") if info.field_name.endswith("email")
+                                  else (_URL_RE, "a web address", "https://domain.org/..."))
+        if v and not pattern.match(v):
+            raise ValueError(f"{v!r} is not {what}; write it as {example}, or leave the key out")
+        return v
+
+    @property
+    def publisher(self) -> tuple[str, str, str]:
+        """(name, email, url) of the publisher: the publisher keys, else the institution or creator's."""
+        return (self.publisher_name or self.institution or self.creator_name,
+                self.publisher_email or self.creator_email, self.publisher_url or self.creator_url)
 
 
 class Site(_Strict):

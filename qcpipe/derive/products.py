@@ -13,6 +13,14 @@
 
 Files: ``derived/<station>/qcpipe_<station>_<deployment>_v<NNN>_<product>.{nc,csv}``
 (named after the dataset they were computed from).
+
+Each NetCDF product carries the datasets' ACDD-1.3 block
+(:func:`qcpipe.archive.cf.acdd_attributes`), is a single-feature CF ``timeSeries``
+at its station (:func:`qcpipe.archive.cf.add_station_variables`), and names what it
+was made from: ``source_dataset_id`` and ``source_dataset_sha256`` (the dataset
+versions, in the same order) and ``qcpipe_version``. A gauge deployment's fitted
+constants name the dataset, its SHA-256 and qcpipe's version in their ``source``
+text; a site fit's JSON record names the gauge datasets' lineage and qcpipe's version.
 """
 
 from __future__ import annotations
@@ -29,12 +37,13 @@ from .. import __version__
 
 from ..config.constituents import load_constituents, write_constituents
 from ..config.loading import content_sha256
-from ..files import write_text_atomic
+from ..files import sha256_of_file, write_text_atomic
 from ..tide.analysis import fit_constituents
 from ..tide.datums import tidal_datums
 from ..tide.events import high_low_waters, tidal_day_classes
 from ..tide.exposure import daily_exposure, exposure_periods
 from ..archive.catalog import utc_now
+from ..archive.cf import acdd_attributes, add_station_variables
 from ..archive.ncio import read_dataset, write_dataset_atomic
 
 EVENT_CLASSES = ("HHW", "LHW", "HLW", "LLW")
@@ -56,17 +65,46 @@ def _seconds(t) -> np.ndarray:
     return np.asarray(t, dtype="datetime64[ns]").astype(np.int64) / 1e9
 
 
-def _time_attrs(long_name: str) -> dict:
-    return dict(long_name=long_name, units="seconds since 1970-01-01T00:00:00Z", calendar="standard")
+def _time_attrs(long_name: str, *, coordinate: bool = False) -> dict:
+    """A time variable's attributes; ``calendar`` only on the feature's time coordinate (CF-1.8 section 4.4.1)."""
+    attrs = dict(long_name=long_name, standard_name="time", units="seconds since 1970-01-01T00:00:00Z")
+    return attrs | dict(calendar="standard") if coordinate else attrs
 
 
-def _global(station, site, title: str, summary: str, source_id: str) -> dict:
-    return {"Conventions": "CF-1.8, ACDD-1.3", "title": title, "summary": summary,
-            "source": f"derived by qcpipe {__version__} from dataset {source_id}", "station_id": station.id,
-            "site_name": site.name, "vertical_datum": site.vertical_datum, "date_created": utc_now(),
-            "geospatial_lat_min": station.latitude, "geospatial_lat_max": station.latitude,
-            "geospatial_lon_min": station.longitude, "geospatial_lon_max": station.longitude,
-            "comment": "tide values are for data quality control only, not for navigation or safety planning"}
+#: keywords of the derived products
+TIDE_KEYWORDS = "tide, high water, low water, tidal datums, water level, intertidal, coastal"
+EXPOSURE_KEYWORDS = "intertidal, emersion, aerial exposure, immersion, air temperature, coastal"
+
+
+def provenance_attrs(sources: list[Path]) -> dict:
+    """What a product was made from: the dataset versions' ids (file stems) and SHA-256, and qcpipe's version."""
+    return {"source_dataset_id": " ".join(Path(p).stem for p in sources),
+            "source_dataset_sha256": " ".join(sha256_of_file(p) for p in sources),
+            "qcpipe_version": __version__}
+
+
+def _global(ctx, station, site, *, product: str, base_name: str, title: str, summary: str, sources: list[Path],
+            keywords: str, times, end_times=None) -> dict:
+    """The global attributes of a derived product: the datasets' ACDD block, a timeSeries at the station,
+    and its provenance."""
+    now = utc_now()
+    ids = " and ".join(Path(p).stem for p in sources)
+    attrs = acdd_attributes(
+        info=ctx.register.info, station=station, site=site, title=title, summary=summary,
+        dataset_id=f"{base_name}_{product}", history=f"{now} qcpipe {__version__}: {product} derived from {ids}",
+        source=f"derived by qcpipe {__version__} from dataset {ids}",
+        processing_level="Level 2: derived from quality-controlled Level 1 series", times=times, end_times=end_times,
+        date_created=now, feature_type="timeSeries", keywords=keywords)
+    return attrs | provenance_attrs(sources)
+
+
+def _on_station(ds: xr.Dataset, enc: dict, station, site, time_name: str) -> None:
+    """Make ``ds`` a single-feature timeSeries at the station: its instance variables, and every variable
+    on the product's dimension naming them and ``time_name`` as its coordinates."""
+    coords = f"{time_name} " + add_station_variables(ds, enc, station, site)
+    for name, var in ds.data_vars.items():
+        if name != time_name and var.dims and name not in ds.dims:
+            var.attrs["coordinates"] = coords
 
 
 def _base(ctx, station, dep, version) -> Path:
@@ -103,11 +141,13 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
     written.append(write_text_atomic(base.with_name(base.name + "_tide_events.csv"),
                                      _csv(rows, ["time_utc", "kind", "tidal_day_class", "height_m", "source"])))
     n = len(rows)
+    event_times = np.array([np.datetime64(r[0].rstrip("Z"), "ns") for r in rows], dtype="datetime64[ns]")
     ds = xr.Dataset({
-        "event_time": ("event", np.array([_seconds(np.datetime64(r[0].rstrip("Z"))) for r in rows], np.float64).ravel(),
-                       _time_attrs("time of the high or low water (UTC)")),
+        "event_time": ("event", _seconds(event_times).astype(np.float64),
+                       _time_attrs("time of the high or low water (UTC)", coordinate=True)),
         "event_height": ("event", np.array([r[3] for r in rows], np.float64),
-                         dict(long_name=f"height of the high or low water above {site.vertical_datum}", units="m")),
+                         dict(standard_name="water_surface_height_above_reference_datum",
+                              long_name=f"height of the high or low water above {site.vertical_datum}", units="m")),
         "event_kind": ("event", np.array([1 if r[1] == "high" else 0 for r in rows], np.int8),
                        dict(long_name="kind of event", flag_values=np.array([0, 1], np.int8),
                             flag_meanings="low_water high_water")),
@@ -121,8 +161,15 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
                          dict(long_name="source of the event", flag_values=np.array([0, 1], np.int8),
                               flag_meanings="harmonic_prediction observed_water_level")),
     })
-    attrs = _global(station, site, f"High and low waters at {station.id}, deployment {dep.id}",
-                    f"{n_obs} observed and {n - n_obs} predicted high and low waters", base.name)
+    source = ctx.paths.dataset(station.id, dep.id, version)
+    attrs = _global(ctx, station, site, product="tide_events", base_name=base.name, keywords=TIDE_KEYWORDS,
+                    title=f"High and low waters at station {station.id}, deployment {dep.id}",
+                    summary=(f"{n_obs} high and low waters observed in the quality-controlled water level of "
+                             f"deployment {dep.id} (samples flagged fail or missing left out) and {n - n_obs} "
+                             "predicted from the site's harmonic constants over the same span, each with its class "
+                             "in the tidal day (HHW, LHW, HLW, LLW), heights above "
+                             f"{site.vertical_datum}; tidal datums of the record in the datum_* attributes."),
+                    sources=[source], times=event_times)
     try:
         dat = tidal_datums(t, h, ev)
     except ValueError as err:
@@ -141,13 +188,14 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
                  ["datum", f"metres above {site.vertical_datum}"])))
     ds.attrs = attrs
     enc = {v: {"_FillValue": None} for v in ds.data_vars}
+    _on_station(ds, enc, station, site, "event_time")
     written.append(write_dataset_atomic(ds, base.with_name(base.name + "_tide_events.nc"), enc))
     record_days = (t[-1] - t[0]).astype("timedelta64[s]").astype(float) / 86400
     if record_days >= 15:
         fit = fit_constituents(t, h, latitude=station.latitude)
         constants = fit.to_constants(site=site.name, datum=site.vertical_datum,
                                      source=f"least-squares fit by qcpipe {__version__} to {base.name} "
-                                            f"({record_days:.1f} days)")
+                                            f"(sha256:{sha256_of_file(source)}, {record_days:.1f} days)")
         written.append(write_constituents(base.with_name(base.name + "_constituents.toml"), constants))
     return written
 
@@ -181,7 +229,7 @@ def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: f
                  f"{', '.join(sorted(gauges))}, {_iso(fit.start)} to {_iso(fit.end)} ({fit.record_days:.1f} days)")
     constants = fit.to_constants(site=site.name, datum=site.vertical_datum, source=described)
     write_constituents(toml, constants)
-    meta = {"inputs_sha256": key, "described": described, "gauge_datasets": gauges,
+    meta = {"inputs_sha256": key, "described": described, "gauge_datasets": gauges, "qcpipe_version": __version__,
             "start": _iso(fit.start), "end": _iso(fit.end), "record_days": round(fit.record_days, 3),
             "samples": fit.n_samples, "residual_std_m": round(float(fit.residual_std_m), 4),
             "resolved": list(fit.resolved), "dropped": dict(fit.dropped),
@@ -220,7 +268,7 @@ def write_exposure_products(ctx, station) -> list[Path]:
     periods = exposure_periods(pds["time"].values, pds["immersion"].values, tt, tv)
     daily = daily_exposure(periods, temperature_times=tt, temperature=tv)
     base = _base(ctx, station, dep, latest["version"])
-    src = Path(latest["path"]).stem + (f" and {Path(temp[1]['path']).stem}" if temp else "")
+    sources = [Path(latest["path"])] + ([Path(temp[1]["path"])] if temp else [])
     written = [
         write_text_atomic(base.with_name(base.name + "_emersion_periods.csv"), _csv(
             [[_iso(s), _iso(e), round(float(d) / 3600, 4), _r(mx), _r(mn), int(c)] for s, e, d, mx, mn, c in
@@ -235,7 +283,7 @@ def write_exposure_products(ctx, station) -> list[Path]:
     ]
     fill = {"_FillValue": np.float64(np.nan)}
     pds_out = xr.Dataset({
-        "start_time": ("period", _seconds(periods.start), _time_attrs("first emersed sample (UTC)")),
+        "start_time": ("period", _seconds(periods.start), _time_attrs("first emersed sample (UTC)", coordinate=True)),
         "end_time": ("period", _seconds(periods.end), _time_attrs("first immersed sample after the emersion (UTC)")),
         "duration": ("period", periods.duration_s.astype(np.float64), dict(long_name="emersion duration", units="s")),
         "max_temperature": ("period", periods.max_temperature, dict(long_name="highest temperature while emersed",
@@ -245,15 +293,20 @@ def write_exposure_products(ctx, station) -> list[Path]:
         "both_ends_observed": ("period", periods.complete.astype(np.int8), dict(
             long_name="the draining and the flooding that bound the period were both observed",
             flag_values=np.array([0, 1], np.int8), flag_meanings="no yes")),
-    }, attrs=_global(station, site, f"Emersion periods at station {station.id}",
-                     f"{len(periods)} emersion periods of the sensing point", src))
-    written.append(write_dataset_atomic(pds_out, base.with_name(base.name + "_emersion_periods.nc"),
-                                        {"start_time": {"_FillValue": None}, "end_time": {"_FillValue": None},
-                                         "duration": fill, "max_temperature": fill, "mean_temperature": fill,
-                                         "both_ends_observed": {"_FillValue": None}}))
+    }, attrs=_global(ctx, station, site, product="emersion_periods", base_name=base.name, keywords=EXPOSURE_KEYWORDS,
+                     title=f"Emersion periods at station {station.id} ({station.name})",
+                     summary=(f"{len(periods)} periods when the sensing point of station {station.id}, "
+                              f"{station.elevation_m:g} m above {site.vertical_datum}, was out of the water, from the "
+                              f"immersion state of probe deployment {dep.id}: start, end, duration and the highest and "
+                              "mean temperature while emersed (from the station's temperature logger where it has one)."),
+                     sources=sources, times=periods.start, end_times=periods.end))
+    enc = {"start_time": {"_FillValue": None}, "end_time": {"_FillValue": None}, "duration": fill,
+           "max_temperature": fill, "mean_temperature": fill, "both_ends_observed": {"_FillValue": None}}
+    _on_station(pds_out, enc, station, site, "start_time")
+    written.append(write_dataset_atomic(pds_out, base.with_name(base.name + "_emersion_periods.nc"), enc))
     day_s = _seconds(daily.day.astype("datetime64[ns]"))
     dds = xr.Dataset({
-        "day": ("day", day_s, _time_attrs("start of the UTC day") | {"standard_name": "time", "axis": "T"}),
+        "day": ("day", day_s, _time_attrs("start of the UTC day", coordinate=True) | {"axis": "T"}),
         "hours_emersed": ("day", daily.emersed_h, dict(long_name="time emersed within the day", units="h")),
         "emersions": ("day", daily.n_emersions.astype(np.int32), dict(long_name="emersions with a part in the day",
                                                                        units="1")),
@@ -261,12 +314,17 @@ def write_exposure_products(ctx, station) -> list[Path]:
                                                                    units="h")),
         "max_aerial_temperature": ("day", daily.max_temperature, dict(
             long_name="highest temperature while emersed within the day", units="degC")),
-    }, attrs=_global(station, site, f"Daily exposure at station {station.id}",
-                     "hours emersed, number of emersions, longest emersion and highest aerial temperature per UTC day",
-                     src))
-    written.append(write_dataset_atomic(dds, base.with_name(base.name + "_daily_exposure.nc"),
-                                        {"day": {"_FillValue": None}, "hours_emersed": fill, "emersions": {"_FillValue": None},
-                                         "longest_emersion": fill, "max_aerial_temperature": fill}))
+    }, attrs=_global(ctx, station, site, product="daily_exposure", base_name=base.name, keywords=EXPOSURE_KEYWORDS,
+                     title=f"Daily exposure at station {station.id} ({station.name})",
+                     summary=(f"Per UTC day at station {station.id}: hours emersed, number of emersions, longest "
+                              "emersion and highest aerial temperature, from the emersion periods of probe "
+                              f"deployment {dep.id}."),
+                     sources=sources, times=daily.day.astype("datetime64[ns]"),
+                     end_times=daily.day.astype("datetime64[ns]") + np.timedelta64(1, "D")))
+    enc = {"day": {"_FillValue": None}, "hours_emersed": fill, "emersions": {"_FillValue": None},
+           "longest_emersion": fill, "max_aerial_temperature": fill}
+    _on_station(dds, enc, station, site, "day")
+    written.append(write_dataset_atomic(dds, base.with_name(base.name + "_daily_exposure.nc"), enc))
     return written
 
 

@@ -326,19 +326,27 @@ def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
 
 
 def _add_transitions(ds: xr.Dataset, enc: dict, a) -> None:
-    """Observed wet/dry transitions and their offsets from the prediction, on their own dimension."""
+    """Observed wet/dry transitions and their offsets from the prediction, on their own dimension.
+
+    ``transition_time`` is the coordinate variable of that dimension (CF-1.8 section 1.3: named
+    as its dimension, strictly increasing, no missing values). The probe analysis gives the
+    transitions in time order, one state change per time, so it is strictly increasing; a
+    record that is not is refused rather than written as a broken coordinate.
+    """
     secs = a.transition_time.astype("datetime64[ns]").astype(np.int64) / 1e9
-    ds["transition_time"] = xr.DataArray(secs, dims=("transition",), attrs=dict(
-        long_name="time of an observed wet/dry transition of the probe (UTC)",
-        units="seconds since 1970-01-01T00:00:00Z", calendar="standard"))
-    ds["transition_kind"] = xr.DataArray(a.transition_kind, dims=("transition",), attrs=dict(
+    if secs.size > 1 and not np.all(np.diff(secs) > 0):
+        raise ValueError("transition times of the probe analysis are not strictly increasing; "
+                         "they cannot be the coordinate of the transition_time dimension")
+    dim = ("transition_time",)
+    ds.coords["transition_time"] = xr.DataArray(secs, dims=dim, attrs=dict(
+        standard_name="time", long_name="time of an observed wet/dry transition of the probe (UTC)",
+        units="seconds since 1970-01-01T00:00:00Z", calendar="standard", axis="T"))
+    ds["transition_kind"] = xr.DataArray(a.transition_kind, dims=dim, attrs=dict(
         long_name="kind of transition", flag_values=np.array([0, 1], np.int8), flag_meanings="draining flooding"))
-    ds["transition_offset"] = xr.DataArray(a.transition_offset_s, dims=("transition",), attrs=dict(
+    ds["transition_offset"] = xr.DataArray(a.transition_offset_s, dims=dim, attrs=dict(
         long_name="observed minus predicted transition time (positive: logger clock ahead)", units="s"))
-    enc.update(transition_time={"_FillValue": None}, transition_kind={"_FillValue": None},
+    enc.update(transition_time={"_FillValue": None, "dtype": "float64"}, transition_kind={"_FillValue": None},
                transition_offset={"_FillValue": np.float64(np.nan)})
-
-
 
 
 def air_pressure_summary(attrs: dict) -> dict:

@@ -83,7 +83,12 @@ def test_valid_files_load(tmp_path):
     ('id = "st1"', 'id = "../etc"', "station[0] (id '../etc').id", "not a safe identifier"),
     ('kind = "immersion_probe"', 'kind = "sonar"', "instrument[0] (id 'P-1').kind", "immersion_probe"),
     ('start = 2026-09-01T10:00:00Z', 'start = 2026-09-01T10:00:00', "deployment[0] (id 'd1').start", "timezone"),
-], ids=["latitude", "missing-key", "offset", "inverted-window", "unknown-station", "path-escape", "kind", "naive-start"])
+    ('name = "test"', 'name = "test"\npublisher_email = "data desk"', "register.publisher_email",
+     "not an e-mail address"),
+    ('name = "test"', 'name = "test"\npublisher_url = "example.org/data"', "register.publisher_url",
+     "not a web address"),
+], ids=["latitude", "missing-key", "offset", "inverted-window", "unknown-station", "path-escape", "kind", "naive-start",
+        "publisher-email", "publisher-url"])
 def test_register_errors(tmp_path, old, new, key, words):
     assert old in REGISTER
     with pytest.raises(ConfigError) as info:
