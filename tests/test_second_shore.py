@@ -13,9 +13,11 @@ tide handbooks such as Pugh 1987).
 
 from __future__ import annotations
 
+import hashlib
 import json
 import re
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -346,6 +348,9 @@ def test_the_site_fit_is_written_and_predicts_the_true_tide(shore):
     record = json.loads((shore.ctx.paths.site_product(s.site_id, "fitted_constituents.json")).read_text())
     assert record["record_days"] >= 15 and set(record["gauge_datasets"]) == {
         d for d in s.loggers if shore.ctx.register.kind_of(d) == "pressure"}
+    for dep, src in record["source_datasets"].items():      # provenance: the gauge datasets' files, by SHA-256
+        path = Path(shore.ctx.catalog.latest_dataset(dep)["path"])
+        assert src["dataset"] == path.name and src["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
     tide = site_tide(shore.ctx, s.site_id)
     t = np.arange(np.datetime64(record["start"].rstrip("Z"), "ns"), np.datetime64(record["end"].rstrip("Z"), "ns"),
                   np.timedelta64(30, "m"))

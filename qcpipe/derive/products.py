@@ -200,7 +200,8 @@ def write_products(ctx, station, site, dep, kind, time, conv, flags, version, *,
     return written
 
 
-def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: float | None):
+def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: float | None,
+                          sources: dict | None = None):
     """Constants fitted to all of a site's gauge records: (constants or None, what they come from, why not).
 
     ``times``/``levels`` are the gauges' latest valid samples merged; ``gauges`` is
@@ -208,7 +209,7 @@ def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: f
     whose hash keys the fit: while it is unchanged the written constants are read
     back, otherwise they are fitted again (:func:`qcpipe.tide.analysis.fit_constituents`,
     at least 15 days of record) and written with a JSON record of the fit: the
-    gauges, the span, the record length and the constituents resolved, inferred and dropped.
+    gauges, ``sources`` (each gauge dataset's file and SHA-256), the span, the record length and the constituents resolved, inferred and dropped.
     """
     toml = ctx.paths.site_product(site.id, "fitted_constituents.toml")
     record = toml.with_suffix(".json")
@@ -230,6 +231,7 @@ def site_fitted_constants(ctx, site, times, levels, gauges: dict, *, latitude: f
     constants = fit.to_constants(site=site.name, datum=site.vertical_datum, source=described)
     write_constituents(toml, constants)
     meta = {"inputs_sha256": key, "described": described, "gauge_datasets": gauges, "qcpipe_version": __version__,
+            "source_datasets": sources or {},
             "start": _iso(fit.start), "end": _iso(fit.end), "record_days": round(fit.record_days, 3),
             "samples": fit.n_samples, "residual_std_m": round(float(fit.residual_std_m), 4),
             "resolved": list(fit.resolved), "dropped": dict(fit.dropped),

@@ -85,8 +85,10 @@ def site_tide(ctx: Context, site_id: str) -> SiteTide:
         else:
             site = ctx.register.site_by_id(site_id)
             lat = ctx.register.station_by_id(ctx.register.deployment_by_id(rows[0][0]).station).latitude
+            rows_now = {d: ctx.catalog.latest_dataset(d) for d, _ in rows}
+            sources = {d: {"dataset": Path(r["path"]).name, "sha256": r.get("sha256")} for d, r in rows_now.items()}
             tide.fitted, tide.fitted_from, why = site_fitted_constants(
-                ctx, site, t, levels, lineage.site_gauge_datasets(ctx, site_id), latitude=lat)
+                ctx, site, t, levels, lineage.site_gauge_datasets(ctx, site_id), latitude=lat, sources=sources)
             if why:
                 tide.why_no_fit = f"the register names no harmonic constants for the site and {why}"
     return tide
