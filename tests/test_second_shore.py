@@ -367,3 +367,14 @@ def test_probes_were_checked_against_the_observed_gauge(shore):
         src = shore.dataset(dep)["tide_reference_source"].values
         # 1: observed gauge level; the rest (3: fitted constants) only where the gauge has no sample
         assert np.mean(src == 1) > 0.95 and set(np.unique(src)) <= {1, 3}, dep
+
+
+def test_the_report_shows_the_reference_and_the_fouled_period(shore):
+    s = shore.scenario
+    pages = {p.name: p.read_text("utf-8") for p in Path(shore.summary.report).parent.rglob("*.html")}
+    page = next(text for name, text in pages.items() if s.fouled_station in name)
+    assert "tide reference (checked against)" in page and "observed gauge level" in page
+    assert "probe unreliable (fouled or buried)" in page
+    start, end = s.fouled_period
+    stamps = [np.datetime64(x.replace(" ", "T"), "ns") for x in _STAMP.findall(page)]
+    assert any(abs(a - start) <= TIDAL_DAY for a in stamps) and any(abs(b - end) <= TIDAL_DAY for b in stamps)

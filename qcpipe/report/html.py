@@ -725,6 +725,8 @@ def _dataset_section(archive: _Archive, station: str, row: dict, in_run: dict, o
         info.append(["tide reference (checked against)", _text(attrs["immersion_reference_level"])])
     if attrs.get("immersion_source") and "immersion" in ds.data_vars:
         info.append(["immersion state from", _text(attrs["immersion_source"])])
+    if attrs.get("immersion_unreliable_periods"):
+        info.append(["probe unreliable (fouled or buried)", _bold(_text(attrs["immersion_unreliable_periods"]))])
     imm = ds["immersion"].values if "immersion" in ds.data_vars else None
     figures = []
     for var in _qc_variables(ds):
