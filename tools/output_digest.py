@@ -1,8 +1,9 @@
 """Digest of an archive's outputs, for regression checks across refactorings.
 
 Every NetCDF variable (values, dtype, attributes), every global attribute, and the text of
-every CSV and TOML file under ``datasets/``, ``ingested/``, ``derived/`` and ``conflicts/`` is
-hashed, leaving out only what belongs to the run itself (times of writing, history lines).
+every CSV, TOML and JSON file under ``datasets/``, ``ingested/``, ``derived/``, ``conflicts/`` and ``sites/`` is
+hashed, leaving out only what belongs to the run itself (times of writing, history lines, and
+the SHA-256 of source dataset files, which carry those times).
 Two archives made from the same inputs by code that should not change outputs have equal
 digests.
 
@@ -22,10 +23,13 @@ from pathlib import Path
 import numpy as np
 
 #: global attributes that record the run rather than the data
-RUN_ATTRS = {"date_created", "date_modified", "date_issued", "date_metadata_modified", "history"}
+RUN_ATTRS = {"date_created", "date_modified", "date_issued", "date_metadata_modified", "history",
+             "source_dataset_sha256"}       # the SHA-256 of source dataset files, which carry their run's times
 #: timestamps written into text outputs (CSV/TOML "generated at" lines)
 _STAMP = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(\.\d+)?Z")
-FOLDERS = ("datasets", "ingested", "derived", "conflicts")
+#: SHA-256 digests in text outputs (a fitted constants file's source dataset: see RUN_ATTRS)
+_SHA256 = re.compile(r"\b[0-9a-f]{64}\b")
+FOLDERS = ("datasets", "ingested", "derived", "conflicts", "sites")
 
 
 def _attr_text(value) -> str:
@@ -57,7 +61,8 @@ def netcdf_digest(path: Path) -> str:
 
 
 def text_digest(path: Path) -> str:
-    return hashlib.sha256(_STAMP.sub("<time>", path.read_text(encoding="utf-8")).encode()).hexdigest()
+    text = _SHA256.sub("<sha256>", _STAMP.sub("<time>", path.read_text(encoding="utf-8")))
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 def archive_digest(root: Path) -> dict[str, str]:
@@ -69,7 +74,7 @@ def archive_digest(root: Path) -> dict[str, str]:
             rel = str(p.relative_to(root))
             if p.suffix == ".nc":
                 out[rel] = netcdf_digest(p)
-            elif p.suffix in (".csv", ".toml"):
+            elif p.suffix in (".csv", ".toml", ".json"):
                 out[rel] = text_digest(p)
     return out
 
