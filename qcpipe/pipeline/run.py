@@ -148,6 +148,8 @@ def import_steps() -> None:
     (``archive.ncio.xarray_module``): a runner that runs steps on threads calls this before it
     starts them, so no two threads import a module at once."""
     from ..archive.ncio import xarray_module
+    from ..ingest import match  # noqa: F401  (the readers: pandas)
+    from ..report import artifacts, html  # noqa: F401  (the report's pages and plots: jinja2, matplotlib)
     from . import deployment, references, store  # noqa: F401
 
     xarray_module()
@@ -185,12 +187,17 @@ def run_if_nothing_to_do(ctx: Context, deployments: list[str] | None = None, *,
     has work (then run it on the orchestrator's runner).
 
     Decided by :func:`plan.pending_work`, the run's own decision, and recorded in the catalog
-    like any run, all under the archive's lock.  A re-run asked for deployments always has work."""
+    like any run, all under the archive's lock.  A re-run asked for deployments always has work.
+    When deciding fails (a missing inbox, say), the run here asks again and records its failure
+    before the error goes on, as a run on the orchestrator does."""
     if deployments:
         return None
     with ArchiveLock(ctx.paths.root):
-        work = pending_work(ctx, inbox=kind == "nightly")
-        if not work.nothing:
+        try:
+            work = pending_work(ctx, inbox=kind == "nightly")
+        except Exception:  # noqa: BLE001 - the run below meets it again and records it
+            work = None
+        if work is not None and not work.nothing:
             return None
         if kind == "nightly":
             return nightly_run(ctx, InProcess(), work)

@@ -13,9 +13,12 @@ from __future__ import annotations
 import hashlib
 import os
 import sqlite3
+import subprocess
+import sys
 
 import pytest
 
+from qcpipe.errors import ConfigError
 from qcpipe.ingest.discover import discover_files
 from qcpipe.pipeline.context import load_context
 from qcpipe.pipeline.plan import pending_work
@@ -158,3 +161,30 @@ def test_cache_write_keeps_the_old_cache_or_the_new_one(demo):
     with pytest.raises(sqlite3.IntegrityError):
         ctx.catalog.save_inbox_hashes(bad)
     assert ctx.catalog.inbox_hashes() == before      # the delete before the failed insert was rolled back
+
+
+def test_import_steps_loads_what_steps_import_on_threads():
+    # a runner on threads calls import_steps first, so no two task threads import these at once
+    # (a first import of dask.distributed from two threads left a half-initialised module)
+    code = ("import sys\nfrom qcpipe.pipeline.run import import_steps\n"
+            "before = {m for m in ('xarray', 'pandas', 'matplotlib', 'distributed') if m in sys.modules}\n"
+            "import_steps()\n"
+            "print(sorted(before), all(m in sys.modules for m in ('xarray', 'pandas', 'matplotlib', 'distributed',"
+            " 'qcpipe.pipeline.deployment', 'qcpipe.ingest.readers', 'qcpipe.report.html')))\n")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.split() == ["[]", "True"]
+
+
+def test_a_failed_decision_is_recorded_as_a_failed_run(demo):
+    moved = demo.inbox.with_name("inbox-away")
+    demo.inbox.rename(moved)
+    try:
+        ctx = load_context(demo.workspace)
+        runs_before = len(ctx.catalog.runs())
+        with pytest.raises(ConfigError, match="paths.inbox"):
+            run_if_nothing_to_do(ctx)
+        runs = ctx.catalog.runs()
+        assert len(runs) == runs_before + 1 and (runs[-1]["kind"], runs[-1]["outcome"]) == ("nightly", "failed")
+    finally:
+        moved.rename(demo.inbox)
