@@ -11,6 +11,8 @@
     qcpipe package   --workspace W      BagIt archive packages per station and deployment
     qcpipe schedule  --workspace W      serve the nightly flow on a cron schedule (needs a Prefect server)
 
+``process`` and ``rerun`` start the orchestrator only when the run has work: a run with
+nothing to do is decided and recorded at once (``pipeline.run.run_if_nothing_to_do``).
 Expected failures print one line ``qcpipe: error: ...`` and exit 2.
 """
 
