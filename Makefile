@@ -42,10 +42,12 @@ clean-demo:
 	rm -rf demo_archive
 
 ## make bench: speed ratios against their targets (benchmarks/README.md); writes benchmarks/last-run.json,
-## then the speed-up of 2 Dask workers over 1 on a multi-station nightly run
+## then the speed-up of 2 Dask workers over 1 on a multi-station nightly run, then the orchestrator's
+## share of a demo run and the wall time of a run with nothing to do
 bench: $(STAMP)
 	$(PY) benchmarks/run.py
 	$(PY) benchmarks/dask_speedup.py
+	$(PY) benchmarks/orchestrator_share.py
 
 ## make digest: record the demo's output digest (tests/reference/demo_outputs_digest.json) after a change
 ## that is meant to alter outputs; say so in the commit message

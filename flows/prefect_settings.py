@@ -1,8 +1,10 @@
 """Settings for Prefect, applied before it is imported.
 
-Prefect runs in its embedded local mode unless ``PREFECT_API_URL`` is set:
+Prefect runs in its embedded local mode unless ``PREFECT_API_URL`` is set
+(then every flow runs on that server, and the embedded server's settings below have no effect):
 each run starts a temporary API server with its SQLite database under the
-archive's ``.prefect`` folder.  Telemetry is off (it also printed spurious
+archive's ``.prefect`` folder.  The command calls this only when a run has work
+(``qcpipe.pipeline.run.run_if_nothing_to_do``).  Telemetry is off (it also printed spurious
 database-lock and name-resolution errors on a closed network), the start-up
 timeout is long enough for a fresh database, and console logs show warnings
 only.  Values already in the environment win.

@@ -12,7 +12,9 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from qcpipe.errors import is_transient
-from qcpipe.pipeline.run import STEPS, Job  # noqa: F401  (Job: what every task receives)
+from qcpipe.pipeline.run import STEPS, Job, import_steps  # noqa: F401  (Job: what every task receives)
+
+import_steps()     # here, in the importing thread, before any task thread starts
 
 #: Attempts after the first for a task that met a transient I/O error, and the waits between them (s).
 RETRIES = 3

@@ -11,6 +11,8 @@
     qcpipe package   --workspace W      BagIt archive packages per station and deployment
     qcpipe schedule  --workspace W      serve the nightly flow on a cron schedule (needs a Prefect server)
 
+``process`` and ``rerun`` start the orchestrator only when the run has work: a run with
+nothing to do is decided and recorded at once (``pipeline.run.run_if_nothing_to_do``).
 Expected failures print one line ``qcpipe: error: ...`` and exit 2.
 """
 
@@ -108,14 +110,26 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+def _take_archive(args):
+    """The workspace's context, loaded and checked (one line on any problem), with the archive's lock
+    taken for the rest of the command (one run at a time; held until exit)."""
+    from .archive.lock import ArchiveLock
+    from .pipeline.context import load_context
+
+    ctx = load_context(args.workspace)
+    ArchiveLock(ctx.paths.root).__enter__()
+    return ctx
+
+
 def _prepare_flow(args):
+    """Settings for the orchestrator (call before it is imported), the archive's lock taken first."""
     import os
 
     from .config import load_workspace
     from .flows.prefect_settings import configure_prefect
 
     ws = load_workspace(args.workspace)
-    ws.load()   # fail fast with one line before the orchestrator starts
+    _take_archive(args)   # fail fast with one line before the orchestrator starts
     if args.verbose:
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "INFO")
         os.environ.setdefault("PREFECT_LOGGING_LEVEL", "INFO")
@@ -123,12 +137,44 @@ def _prepare_flow(args):
         # qcpipe prints the outcome itself (one line for an expected failure); the orchestrator's
         # own record of a failed run, with its traceback, stays in its database
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
-    # one run at a time: take the archive's lock before the orchestrator starts (held until exit)
-    from .archive.lock import ArchiveLock
-
-    ArchiveLock(ws.archive).__enter__()
     configure_prefect(ws.archive / ".prefect")
     return ws
+
+
+def _where(args) -> str:
+    """Where the run's tasks go, for the command's first line."""
+    import os
+
+    if args.dask:
+        return f"Dask cluster {args.dask}"
+    url = os.environ.get("PREFECT_API_URL")
+    return f"Prefect server {url}" if url else "Prefect, local mode"
+
+
+def _without_orchestrator(args, deployments=None, kind="nightly"):
+    """The run's summary when it has nothing to do (recorded, no orchestrator started); None when it has work.
+
+    Imports no orchestrator and none of the QC's libraries (``python -X importtime``; the test
+    sets ``QCPIPE_DEBUG_MODULES`` to list what was imported)."""
+    from .pipeline.run import run_if_nothing_to_do
+
+    ctx = _take_archive(args)
+    summary = run_if_nothing_to_do(ctx, deployments, kind=kind)
+    if summary is not None and not args.quiet:
+        what = (f"processing inbox {ctx.inbox} -> archive {ctx.paths.root}" if kind == "nightly" else
+                f"re-running QC in archive {ctx.paths.root}")
+        print(f"qcpipe: {what} (nothing to do: orchestrator not started)", flush=True)
+    return summary
+
+
+def _debug_modules() -> None:
+    """With ``QCPIPE_DEBUG_MODULES=FILE``, write the names of the modules imported so far to FILE
+    (the tests check that a nothing-to-do run never imports the orchestrator)."""
+    import os
+
+    out = os.environ.get("QCPIPE_DEBUG_MODULES")
+    if out:
+        Path(out).write_text("\n".join(sorted(sys.modules)) + "\n", encoding="utf-8")
 
 
 def _run_with_progress(args, fn, *a):
@@ -163,25 +209,31 @@ def _print_summary(summary, quiet: bool) -> None:
 
 
 def _process(args) -> int:
+    idle = _without_orchestrator(args)
+    if idle is not None:
+        _print_summary(idle, args.quiet)
+        return 0
     ws = _prepare_flow(args)
     from .flows.nightly import nightly_flow_for
 
     flow = nightly_flow_for(args.dask)
     if not args.quiet:
-        where = f"Dask cluster {args.dask}" if args.dask else "Prefect, local mode"
-        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} ({where})", flush=True)
+        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} ({_where(args)})", flush=True)
     _print_summary(_run_with_progress(args, flow, str(ws.path), args.dask), args.quiet)
     return 0
 
 
 def _rerun(args) -> int:
+    idle = _without_orchestrator(args, args.deployment, kind="rerun")
+    if idle is not None:
+        _print_summary(idle, args.quiet)
+        return 0
     ws = _prepare_flow(args)
     from .flows.rerun import rerun_flow_for
 
     flow = rerun_flow_for(args.dask)
     if not args.quiet:
-        where = f"Dask cluster {args.dask}" if args.dask else "Prefect, local mode"
-        print(f"qcpipe: re-running QC in archive {ws.archive} ({where})", flush=True)
+        print(f"qcpipe: re-running QC in archive {ws.archive} ({_where(args)})", flush=True)
     _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask), args.quiet)
     return 0
 
@@ -415,6 +467,8 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("qcpipe: interrupted", file=sys.stderr)
         return 130
+    finally:
+        _debug_modules()
 
 
 if __name__ == "__main__":

@@ -16,6 +16,7 @@ import subprocess
 import sys
 from dataclasses import dataclass
 from pathlib import Path
+from types import SimpleNamespace
 
 import pytest
 
@@ -47,6 +48,27 @@ def _listing(archive: Path) -> dict:
             and not p.name.startswith("catalog.sqlite") and p.name != ".lock"}
 
 
+def copy_demo(root: Path) -> Path:
+    """A copy of the demo workspace (sample_raw, qc_rules) in ``root``; its workspace file."""
+    shutil.copytree(REPO / "sample_raw", root / "sample_raw")
+    shutil.copytree(REPO / "qc_rules", root / "qc_rules")
+    return root / "sample_raw" / "workspace.toml"
+
+
+def demo_in_process(root: Path) -> SimpleNamespace:
+    """A copy of the demo in ``root`` after one nightly run without the orchestrator
+    (``nightly_run(ctx, InProcess())``): ``root``, ``workspace``, ``inbox``, ``archive`` (paths), ``first``
+    (the run's summary); tests add what they keep."""
+    from qcpipe.pipeline.context import load_context
+    from qcpipe.pipeline.run import InProcess, nightly_run
+
+    workspace = copy_demo(root)
+    ctx = load_context(workspace)
+    first = nightly_run(ctx, InProcess())
+    return SimpleNamespace(root=root, workspace=workspace, inbox=root / "sample_raw" / "inbox",
+                           archive=ctx.paths.root, first=first)
+
+
 def run_cli(*args, cwd=None, env=None):
     full_env = dict(os.environ)
     full_env.update(env or {})
@@ -57,9 +79,7 @@ def run_cli(*args, cwd=None, env=None):
 @pytest.fixture(scope="session")
 def demo_run(tmp_path_factory) -> DemoRun:
     root = tmp_path_factory.mktemp("demo")
-    shutil.copytree(REPO / "sample_raw", root / "sample_raw")
-    shutil.copytree(REPO / "qc_rules", root / "qc_rules")
-    ws = root / "sample_raw" / "workspace.toml"
+    ws = copy_demo(root)
     inbox = root / "sample_raw" / "inbox"
     before = _hashes(inbox)
     first = run_cli("process", "--workspace", str(ws), cwd=root)

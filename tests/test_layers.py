@@ -17,7 +17,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 #: each top-level part of qcpipe and its layer: a part imports only from lower layers (or itself)
 LAYER = {
-    "qcpipe": 0, "errors": 0, "faults": 0, "arrays": 0, "units": 0, "progress": 0,
+    "qcpipe": 0, "errors": 0, "faults": 0, "arrays": 0, "units": 0, "progress": 0, "lazy": 0,
     "files": 1,
     "checks": 1, "tide": 1,
     "config": 2,

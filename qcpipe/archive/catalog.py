@@ -69,6 +69,16 @@ MIGRATIONS = [
     """
     ALTER TABLE datasets ADD COLUMN run_id INTEGER
     """,
+    # 4: the inbox's content hashes by path, size and time stamps, so unchanged files are not read again
+    """
+    CREATE TABLE inbox_hashes (
+        path TEXT PRIMARY KEY,
+        size INTEGER NOT NULL,
+        mtime_ns INTEGER NOT NULL,
+        ctime_ns INTEGER NOT NULL,
+        sha256 TEXT NOT NULL
+    )
+    """,
 ]
 
 
@@ -156,6 +166,19 @@ class Catalog:
     def known_hashes(self) -> set[str]:
         with self._connect() as con:
             return {r[0] for r in con.execute("SELECT sha256 FROM raw_files")}
+
+    def inbox_hashes(self) -> dict[str, tuple[int, int, int, str]]:
+        """The cached content hashes of the inbox: {path: (size, mtime_ns, ctime_ns, sha256)}."""
+        with self._connect() as con:
+            return {r[0]: (r[1], r[2], r[3], r[4])
+                    for r in con.execute("SELECT path, size, mtime_ns, ctime_ns, sha256 FROM inbox_hashes")}
+
+    def save_inbox_hashes(self, hashes: dict[str, tuple[int, int, int, str]]) -> None:
+        """Replace the cached inbox hashes with ``hashes`` (one transaction: the old cache or the new one)."""
+        with self.transaction() as con:
+            con.execute("DELETE FROM inbox_hashes")
+            con.executemany("INSERT INTO inbox_hashes (path, size, mtime_ns, ctime_ns, sha256) VALUES (?, ?, ?, ?, ?)",
+                            [(path, *row) for path, row in hashes.items()])
 
     def record_raw(self, con: sqlite3.Connection, **row) -> None:
         row.setdefault("first_seen", utc_now())

@@ -9,29 +9,43 @@ from __future__ import annotations
 
 import threading
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from ..files import atomic_path
 
-# xarray's to_netcdf asks dask for its scheduler, which imports dask.distributed on first use.
-# Two task threads doing that first import at once can see a half-initialised module
-# ("module 'dask' has no attribute 'utils'", seen in the crash tests), so it is imported here,
-# once, when this module is imported (before any task thread starts).
-try:
-    import dask.base  # noqa: F401
-    import distributed  # noqa: F401
-except ImportError:        # dask is optional for xarray; without it there is nothing to import
-    pass
+if TYPE_CHECKING:
+    import xarray
 
 NC_LOCK = threading.RLock()
 
 
-def write_dataset_atomic(ds: xr.Dataset, final: str | Path, encoding: dict | None = None) -> Path:
+def xarray_module():
+    """xarray, imported on first use (reading a file's attributes needs only netCDF4), with dask's
+    distributed module.
+
+    xarray's to_netcdf asks dask for its scheduler, which imports dask.distributed on first use.
+    Two task threads doing that first import at once can see a half-initialised module
+    ("module 'dask' has no attribute 'utils'", seen in the crash tests), so it is imported here,
+    once: under ``NC_LOCK`` by every reader and writer below, and by a runner that starts task
+    threads before it starts them (``pipeline.run.import_steps``).
+    """
+    import xarray
+
+    try:
+        import dask.base  # noqa: F401
+        import distributed  # noqa: F401
+    except ImportError:    # dask is optional for xarray; without it there is nothing to import
+        pass
+    return xarray
+
+
+def write_dataset_atomic(ds: xarray.Dataset, final: str | Path, encoding: dict | None = None) -> Path:
     """Write ``ds`` to NetCDF-4 at ``final`` via a temporary file and a rename."""
     final = Path(final)
     with NC_LOCK:
+        xarray_module()
         with atomic_path(final) as tmp:
             try:
                 ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
@@ -44,10 +58,10 @@ def write_dataset_atomic(ds: xr.Dataset, final: str | Path, encoding: dict | Non
     return final
 
 
-def read_dataset(path: str | Path, **kwargs) -> xr.Dataset:
+def read_dataset(path: str | Path, **kwargs) -> xarray.Dataset:
     """Open, load fully into memory and close a NetCDF file (so no handle outlives the lock)."""
     with NC_LOCK:
-        with xr.open_dataset(path, engine="netcdf4", **kwargs) as ds:
+        with xarray_module().open_dataset(path, engine="netcdf4", **kwargs) as ds:
             return ds.load()
 
 

@@ -4,23 +4,34 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-
+from typing import TYPE_CHECKING
 
 from .. import progress
 from ..config.layouts import LoadedLayouts
 from ..config.register import LoadedRegister
 from ..errors import ConfigError
 from ..files import copy_atomic, write_text_atomic
-from ..ingest import FileRejected, IngestedFile, RawFile, discover_files, ingest_file
+from ..ingest.discover import RawFile, discover_files
 from .context import Context
+
+if TYPE_CHECKING:                 # the readers (pandas) are imported when a file is read
+    from ..ingest.match import IngestedFile
 
 
 def find_new_files(ctx: Context) -> tuple[list[RawFile], dict]:
-    """New raw files in the inbox (content not yet in the catalog)."""
+    """New raw files in the inbox (content not yet in the catalog).
+
+    Content hashes come from the catalog's cache of the inbox (``Catalog.inbox_hashes``) for
+    files whose size and time stamps are those it recorded; the others are read and hashed,
+    and the cache is written back (in one transaction) for the next run."""
     if not ctx.inbox.is_dir():
         raise ConfigError(f"{ctx.workspace_path}: key paths.inbox: folder {ctx.inbox} does not exist; "
                           "create it or correct the path")
-    new, counts = discover_files(ctx.inbox, ctx.catalog.known_hashes())
+    catalog = ctx.catalog
+    cached = catalog.inbox_hashes()
+    new, counts, hashes = discover_files(ctx.inbox, catalog.known_hashes(), cached)
+    if hashes != cached:
+        catalog.save_inbox_hashes(hashes)
     progress.expect("read", len(new))
     return new, counts
 
@@ -36,6 +47,8 @@ class FileOutcome:
 
 def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) -> FileOutcome:
     """Ingest one file; a rejected file comes back with its one-line reason (never raises)."""
+    from ..ingest.match import FileRejected, ingest_file
+
     try:
         return FileOutcome(raw, ingested=ingest_file(raw, register, layouts))
     except FileRejected as err:

@@ -1,13 +1,50 @@
-"""Planning a run: which deployments to QC, in dependency order, and which are stale."""
+"""Planning a run: what it has to do, which deployments to QC, in dependency order, and which are stale.
+
+:func:`pending_work` is the one definition of "anything to do": the command asks it
+before starting the orchestrator, and the run asks it again to do the work.  It
+imports nothing heavy (no xarray, pandas or orchestrator), so asking is quick.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-
 from .. import lineage, progress
+from ..archive.ncio import read_attrs
 from ..errors import ConfigError
+from ..ingest.discover import RawFile
 from .context import Context
+from .inbox import find_new_files
+
+
+@dataclass
+class Work:
+    """What a run has to do, from the catalog, the inbox's content hashes and the configuration's fingerprints."""
+    new_files: list[RawFile]          # inbox files whose content the catalog does not have
+    inbox: dict                       # counts from the inbox: seen, known, repeated_in_inbox
+    reread: list[str]                 # deployments whose store was built with other ingest inputs
+    stale: dict[str, list[str]]       # deployments whose latest dataset came from other QC inputs: why
+
+    @property
+    def nothing(self) -> bool:
+        return not (self.new_files or self.reread or self.stale)
+
+
+def pending_work(ctx: Context, *, inbox: bool = True) -> Work:
+    """What a run has to do now: new inbox files (``inbox=False``: the inbox is not looked at, as
+    in a re-run), stores to read again, stale deployments.  Call it under the archive's lock."""
+    new, counts = find_new_files(ctx) if inbox else ([], {"seen": 0, "known": 0, "repeated_in_inbox": []})
+    return Work(new, counts, changed_ingest(ctx), stale_deployments(ctx))
+
+
+def changed_ingest(ctx: Context) -> list[str]:
+    """Deployments whose pre-QC store was built with another register entry or layout."""
+    out = []
+    for d in ctx.register.deployment:
+        path = ctx.paths.ingested(d.station, d.id)
+        if path.exists() and read_attrs(path).get("ingest_key", "") != lineage.ingest_key(ctx, d.id):
+            out.append(d.id)
+    return out
 
 
 @dataclass

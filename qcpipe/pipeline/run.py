@@ -12,6 +12,11 @@ deployment's new files into its store (parallel); rebuild stores whose ingest in
 changed and find deployments whose QC inputs changed; then QC in dependency order:
 barometers, water-level gauges (the site's reference level), then stations in parallel
 (each probe first); then the run's report.
+
+What a run has to do is decided by :func:`plan.pending_work`; :func:`run_if_nothing_to_do`
+asks it first and, when there is nothing, records the run here at once, so the command
+starts the orchestrator only for work.  This module imports the steps' modules (xarray,
+pandas) only when a step runs (:func:`import_steps` imports them all at once).
 """
 
 from __future__ import annotations
@@ -23,14 +28,12 @@ import sys
 from dataclasses import dataclass
 from typing import Protocol
 
+from ..archive.lock import ArchiveLock
 from ..errors import ConfigError
 from ..report.model import Notice, Quarantined, RunSummary
 from .context import Context, load_context
-from .deployment import qc_deployment, qc_station
-from .inbox import find_new_files, group_by_deployment, quarantine_file, read_one_file
-from .plan import QcPlan, check_deployment_ids, plan_qc, stale_deployments
-from .references import site_tide
-from .store import changed_ingest, merge_new_files, rebuild_store
+from .inbox import group_by_deployment, quarantine_file, read_one_file
+from .plan import QcPlan, Work, check_deployment_ids, pending_work, plan_qc
 
 
 def context_fingerprint(ctx: Context) -> str:
@@ -76,27 +79,37 @@ def quarantine(job: Job, outcome) -> str:
 
 def merge_deployment(job: Job, deployment_id, files) -> str:
     """Merge a deployment's new files into its pre-QC store."""
+    from .store import merge_new_files
+
     merge_new_files(job.context(), deployment_id, files)
     return deployment_id
 
 
 def reread_deployment(job: Job, deployment_id) -> list:
     """Rebuild a deployment's pre-QC store from its archived raw files (register or layout changed)."""
+    from .store import rebuild_store
+
     return rebuild_store(job.context(), deployment_id)[1]
 
 
 def qc_gauge(job: Job, deployment_id, files, tide):
     """QC a water-level gauge deployment and write its dataset and tide products."""
+    from .deployment import qc_deployment
+
     return qc_deployment(job.context(), deployment_id, new_files=files, tide=tide, run_id=job.run_id)
 
 
 def qc_barometer(job: Job, deployment_id, files):
     """QC a barometer deployment (its air pressure is subtracted by the level loggers of its site)."""
+    from .deployment import qc_deployment
+
     return qc_deployment(job.context(), deployment_id, new_files=files, run_id=job.run_id)
 
 
 def qc_station_step(job: Job, station_id, deployment_ids, files, tide) -> list:
     """QC one station's deployments (probe first) and write its exposure products."""
+    from .deployment import qc_station
+
     return qc_station(job.context(), station_id, deployment_ids, files, tide, run_id=job.run_id)
 
 
@@ -130,6 +143,18 @@ STEPS = {
 }
 
 
+def import_steps() -> None:
+    """Import every step's modules now, with xarray and dask's distributed module
+    (``archive.ncio.xarray_module``): a runner that runs steps on threads calls this before it
+    starts them, so no two threads import a module at once."""
+    from ..archive.ncio import xarray_module
+    from ..ingest import match  # noqa: F401  (the readers: pandas)
+    from ..report import artifacts, html  # noqa: F401  (the report's pages and plots: jinja2, matplotlib)
+    from . import deployment, references, store  # noqa: F401
+
+    xarray_module()
+
+
 class Pending(Protocol):
     def result(self): ...
 
@@ -156,17 +181,43 @@ class InProcess:
 
 # --- the sequence --------------------------------------------------------------------------
 
-def nightly_run(ctx: Context, runner: Runner) -> RunSummary:
-    """Process everything new in the inbox once, and whatever changed configuration implies."""
+def run_if_nothing_to_do(ctx: Context, deployments: list[str] | None = None, *,
+                         kind: str = "nightly") -> RunSummary | None:
+    """The run (``kind`` "nightly" or "rerun"), here and at once, when it has nothing to do; None when it
+    has work (then run it on the orchestrator's runner).
+
+    Decided by :func:`plan.pending_work`, the run's own decision, and recorded in the catalog
+    like any run, all under the archive's lock.  A re-run asked for deployments always has work.
+    When deciding fails (a missing inbox, say), the run here asks again and records its failure
+    before the error goes on, as a run on the orchestrator does."""
+    if deployments:
+        return None
+    with ArchiveLock(ctx.paths.root):
+        try:
+            work = pending_work(ctx, inbox=kind == "nightly")
+        except Exception:  # noqa: BLE001 - the run below meets it again and records it
+            work = None
+        if work is not None and not work.nothing:
+            return None
+        if kind == "nightly":
+            return nightly_run(ctx, InProcess(), work)
+        return rerun(ctx, InProcess(), work=work)
+
+
+def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSummary:
+    """Process everything new in the inbox once, and whatever changed configuration implies.
+
+    ``work``: what :func:`plan.pending_work` found under the lock this run holds (default: asked here)."""
     run_id = ctx.catalog.start_run("nightly")
     job = Job.of(ctx, run_id)
     summary = RunSummary(archive=str(ctx.paths.root))
     outcome = "failed"
     try:
-        new, seen = find_new_files(ctx)
+        work = work or pending_work(ctx)
+        seen = work.inbox
         summary.files_seen, summary.files_known = seen["seen"], seen["known"]
         summary.repeated_in_inbox = seen["repeated_in_inbox"]
-        outcomes = [p.result() for p in [runner.submit("read-raw-file", job, raw) for raw in new]]
+        outcomes = [p.result() for p in [runner.submit("read-raw-file", job, raw) for raw in work.new_files]]
         for o in outcomes:
             if o.ingested is None:
                 runner.submit("quarantine-file", job, o).result()
@@ -174,7 +225,7 @@ def nightly_run(ctx: Context, runner: Runner) -> RunSummary:
         by_dep = group_by_deployment([o.ingested for o in outcomes if o.ingested is not None])
         for p in [runner.submit("merge-deployment", job, d, files) for d, files in by_dep.items()]:
             p.result()
-        touched = set(by_dep) | refresh_inputs(ctx, runner, summary, exclude=set(by_dep))
+        touched = set(by_dep) | refresh_inputs(ctx, runner, summary, work, exclude=set(by_dep))
         run_plan(ctx, runner, plan_qc(ctx, touched), by_dep, summary, run_id)
         summary.ingested = sum(len(files) for files in by_dep.values())
         outcome = "nothing new" if summary.nothing_new else "completed"
@@ -184,13 +235,16 @@ def nightly_run(ctx: Context, runner: Runner) -> RunSummary:
     return summary
 
 
-def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None) -> RunSummary:
-    """Re-QC what changed (or the given deployments and their dependents) from the archive's stored data."""
+def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None, work: Work | None = None,
+          ) -> RunSummary:
+    """Re-QC what changed (or the given deployments and their dependents) from the archive's stored data.
+
+    ``work``: what :func:`plan.pending_work` found under the lock this run holds (default: asked here)."""
     run_id = ctx.catalog.start_run("rerun")
     summary = RunSummary(archive=str(ctx.paths.root))
     outcome = "failed"
     try:
-        touched = refresh_inputs(ctx, runner, summary)
+        touched = refresh_inputs(ctx, runner, summary, work or pending_work(ctx, inbox=False))
         if deployments:
             check_deployment_ids(ctx, deployments)
             for d in deployments:
@@ -204,15 +258,18 @@ def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None) ->
     return summary
 
 
-def refresh_inputs(ctx: Context, runner: Runner, summary: RunSummary, exclude=()) -> set[str]:
-    """Rebuild stores whose ingest inputs changed and find deployments whose QC inputs changed."""
+def refresh_inputs(ctx: Context, runner: Runner, summary: RunSummary, work: Work, exclude=()) -> set[str]:
+    """Rebuild stores whose ingest inputs changed and take the deployments whose QC inputs changed.
+
+    The stale deployments were found before the run merged or rebuilt any store: neither
+    changes what decides a deployment's QC (its key covers configuration and the catalog's
+    datasets), and deployments whose store the run has just created are QC'd as new data."""
     job = Job.of(ctx)
-    changed = changed_ingest(ctx)
+    changed, stale = work.reread, work.stale
     for p in [runner.submit("reread-deployment", job, d) for d in changed]:
         summary.notices.extend(p.result())
     for d in changed:
         summary.reruns.setdefault(d, []).append("register entry or logger layout changed: raw files read again")
-    stale = stale_deployments(ctx)
     for d, why in stale.items():
         if d not in exclude:
             summary.reruns.setdefault(d, []).extend(why)
@@ -222,6 +279,10 @@ def refresh_inputs(ctx: Context, runner: Runner, summary: RunSummary, exclude=()
 def run_plan(ctx: Context, runner: Runner, plan: QcPlan, by_dep: dict, summary: RunSummary,
              run_id: int | None = None) -> None:
     """QC the plan in dependency order: barometers, gauges, then stations in parallel."""
+    if not plan.sites:
+        return                         # nothing to QC (and no tide reference to load)
+    from .references import site_tide
+
     job = Job.of(ctx, run_id)
     site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
     for p in [runner.submit("qc-barometer", job, d, by_dep.get(d, [])) for d in plan.barometers]:

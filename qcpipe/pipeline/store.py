@@ -12,7 +12,7 @@ import numpy as np
 import xarray as xr
 
 from .. import lineage
-from ..archive.ncio import read_attrs, read_dataset, write_dataset_atomic
+from ..archive.ncio import read_dataset, write_dataset_atomic
 from ..files import write_text_atomic
 from ..ingest import FileRejected, IngestedFile, RawFile
 from ..ingest.timebase import merge_records
@@ -143,16 +143,6 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
     return store
 
 
-
-
-def changed_ingest(ctx: Context) -> list[str]:
-    """Deployments whose pre-QC store was built with another register entry or layout."""
-    out = []
-    for d in ctx.register.deployment:
-        path = ctx.paths.ingested(d.station, d.id)
-        if path.exists() and read_attrs(path).get("ingest_key", "") != lineage.ingest_key(ctx, d.id):
-            out.append(d.id)
-    return out
 
 
 def rebuild_store(ctx: Context, deployment_id: str) -> tuple[Store | None, list[Notice]]:

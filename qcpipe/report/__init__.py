@@ -2,19 +2,14 @@
 
 Reads the archive (datasets through ``archive.ncio``, the catalog, derived
 products) and a plain ``run`` dict; never changes the archive except for its
-own ``reports/`` folder.
+own ``reports/`` folder.  Names are imported from their modules on first use
+(:mod:`qcpipe.lazy`): the run model (``report.model``) does not load the plotting libraries.
 """
 
-from .artifacts import publish_artifacts, summary_markdown
-from .html import (
-    diff_rows,
-    report_stations,
-    run_diff,
-    run_from_catalog,
-    run_from_summary,
-    write_run_report,
-    write_station_pages,
-)
+from ..lazy import exports
 
-__all__ = ["diff_rows", "publish_artifacts", "run_diff", "run_from_catalog", "run_from_summary", "summary_markdown", "write_run_report",
-           "report_stations", "write_station_pages"]
+_WHERE = {"publish_artifacts": ".artifacts", "summary_markdown": ".artifacts",
+          **{n: ".html" for n in ("diff_rows", "report_stations", "run_diff", "run_from_catalog", "run_from_summary",
+                                  "write_run_report", "write_station_pages")}}
+__all__ = sorted(_WHERE)
+__getattr__, __dir__ = exports(__name__, _WHERE)

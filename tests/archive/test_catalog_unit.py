@@ -41,12 +41,12 @@ def cat(tmp_path):
 # --- schema -----------------------------------------------------------------------------------
 
 def test_new_catalog_has_every_migration_and_reopening_keeps_rows(cat):
-    # three migrations are listed in catalog.py (first schema, re-run columns, run_id)
-    assert len(MIGRATIONS) == 3 and cat.schema_version == 3
+    # four migrations are listed in catalog.py (first schema, re-run columns, run_id, inbox hashes)
+    assert len(MIGRATIONS) == 4 and cat.schema_version == 4
     with cat.transaction() as con:
         cat.record_raw(con, **raw_row(SHA_A))
     again = Catalog(cat.path)                   # migrations must not run twice or drop anything
-    assert again.schema_version == 3 and again.known_hashes() == {SHA_A}
+    assert again.schema_version == 4 and again.known_hashes() == {SHA_A}
 
 
 # --- transactions ---------------------------------------------------------------------------

@@ -8,18 +8,13 @@ re-run expectations from DEVELOPERS.md "Order of work in a run".
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import pytest
 
 from qcpipe import pipeline
 from qcpipe.pipeline.run import InProcess, nightly_run, rerun
-from tests.conftest import REPO, _listing
-
-
-class Demo:
-    pass
+from tests.conftest import _listing, demo_in_process
 
 
 def versions(ctx) -> dict[str, int]:
@@ -28,16 +23,9 @@ def versions(ctx) -> dict[str, int]:
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    d = Demo()
-    d.root = tmp_path_factory.mktemp("inprocess")
-    shutil.copytree(REPO / "sample_raw", d.root / "sample_raw")
-    shutil.copytree(REPO / "qc_rules", d.root / "qc_rules")
-    d.workspace = d.root / "sample_raw" / "workspace.toml"
-    d.inbox = d.root / "sample_raw" / "inbox"
+    d = demo_in_process(tmp_path_factory.mktemp("inprocess"))
     d.key = json.loads((d.root / "sample_raw" / "injected.json").read_text())
     ctx = pipeline.load_context(d.workspace)
-    d.first = nightly_run(ctx, InProcess())
-    d.archive = ctx.paths.root
     d.listing_first = _listing(d.archive)
     d.datasets_first = ctx.catalog.datasets()
     d.second = nightly_run(ctx, InProcess())
