@@ -88,6 +88,8 @@ def edited_text(text: str, path: Path, *, add: Annotation | None = None, replace
             aot[i] = _entry(add)
         else:
             del aot[i]
+            if len(aot) == 0:
+                del doc["annotation"]           # not "annotation = []": the file is as if never written to
     elif add is not None:
         aot.append(_entry(add))
     out = tomlkit.dumps(doc)
