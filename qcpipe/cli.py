@@ -10,6 +10,7 @@
     qcpipe audit     --workspace W      catalog accounting and SHA-256 fixity of the whole archive
     qcpipe package   --workspace W      BagIt archive packages per station and deployment
     qcpipe schedule  --workspace W      serve the nightly flow on a cron schedule (needs a Prefect server)
+    qcpipe inspect   --workspace W      a local web page to look at flags, mark periods and re-run QC
 
 ``process`` and ``rerun`` start the orchestrator only when the run has work: a run with
 nothing to do is decided and recorded at once (``pipeline.run.run_if_nothing_to_do``).
@@ -102,6 +103,12 @@ def _parser() -> argparse.ArgumentParser:
     sp.add_argument("--register", help="check this station register file alone")
     sp.add_argument("--layouts", help="check this logger layout file alone")
     sp.add_argument("--rules", help="check this rule set file alone")
+
+    sp = sub.add_parser("inspect", help="serve a local web page to look at flags, mark periods and re-run QC")
+    ws(sp)
+    sp.add_argument("--port", type=int, default=8750, help="port to serve on (default 8750)")
+    sp.add_argument("--host", default="127.0.0.1", help="address to serve on (default 127.0.0.1, this machine "
+                    "only; any other lets others on the network change annotations and start re-runs)")
 
     sp = sub.add_parser("schedule", help="serve the nightly flow on a cron schedule (needs PREFECT_API_URL)")
     ws(sp)
@@ -446,11 +453,22 @@ def _schedule(args) -> int:
     return 0
 
 
+def _inspect(args) -> int:
+    from .review import serve
+
+    if args.host not in ("127.0.0.1", "localhost", "::1"):
+        print(f"qcpipe: warning: serving on {args.host}, not only this machine: anyone who can reach it and "
+              "opens the page can change annotations and start re-runs", file=sys.stderr, flush=True)
+    _context(args)                     # one line, not a page, when the archive has no catalog yet
+    serve(args.workspace, host=args.host, port=args.port, announce=lambda s: print(s, flush=True))
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule,
                "rerun": _rerun, "diff": _diff, "lineage": _lineage, "audit": _audit,
-               "package": _package, "apply-clock": _apply_clock}[args.command]
+               "package": _package, "apply-clock": _apply_clock, "inspect": _inspect}[args.command]
     try:
         return handler(args)
     except QcpipeError as err:

@@ -71,6 +71,13 @@ def install(*, interactive: bool | None = None):
     return _reporter
 
 
+def install_reporter(reporter) -> None:
+    """Show progress through ``reporter`` (any object with ``expect``, ``step`` and ``close``), e.g. a web page's."""
+    global _reporter
+    with _lock:
+        _reporter = reporter
+
+
 def uninstall() -> None:
     global _reporter
     if _reporter is not None:

@@ -26,7 +26,7 @@ LAYER = {
     "probe_analysis": 5, "derive": 5, "diff": 5, "long_series": 5,
     "report": 6,
     "pipeline": 7,
-    "flows": 8,
+    "flows": 8, "review": 8,
     "cli": 9,
 }
 #: what the archive (file and catalog I/O) must not import: science and stages

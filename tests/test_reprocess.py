@@ -128,8 +128,9 @@ reviewer = "T. Reviewer"
 date = 2026-10-05
 ''')
     wsf = work / "sample_raw" / "workspace.toml"
-    wsf.write_text(wsf.read_text().replace('archive = "../demo_archive"',
-                                           'archive = "../demo_archive"\nannotations = "annotations.toml"'))
+    if "\nannotations = " not in wsf.read_text():               # the demo's workspace names one already
+        wsf.write_text(wsf.read_text().replace('archive = "../demo_archive"',
+                                               'archive = "../demo_archive"\nannotations = "annotations.toml"'))
     r = run_cli("process", "--workspace", ws(work))
     assert r.returncode == 0, r.stderr
     assert versions(work)["kc-high-temp-2026-09"] == base_v + 1

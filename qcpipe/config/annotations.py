@@ -55,7 +55,8 @@ class Annotation(BaseModel):
                 "flag": self.flag, "reason": self.reason, "reviewer": self.reviewer, "date": self.date.isoformat()}
 
 
-class _AnnotationFile(BaseModel):
+class AnnotationFile(BaseModel):
+    """The whole annotations file: its ``[[annotation]]`` tables."""
     model_config = ConfigDict(extra="forbid")
     annotation: list[Annotation] = []
 
@@ -79,5 +80,5 @@ def load_annotations(path: str | Path | None) -> Annotations:
     if not path.exists():
         return Annotations([], path)
     data = read_toml(path)
-    model = validate(_AnnotationFile, data, path)
+    model = validate(AnnotationFile, data, path)
     return Annotations(model.annotation, path)

@@ -221,7 +221,8 @@ def test_unknown_station_in_rules_or_annotations_is_named(tmp_path, what):
                           'start = 2026-10-01T00:00:00Z\nend = 2026-10-02T00:00:00Z\nflag = 3\n'
                           'reason = "probe fouled"\nreviewer = "A. Reviewer"\ndate = 2026-10-06\n')
         ws_file = tmp_path / "sample_raw" / "workspace.toml"
-        ws_file.write_text(ws_file.read_text().replace('[paths]\n', '[paths]\nannotations = "annotations.toml"\n'))
+        if "\nannotations = " not in ws_file.read_text():        # the demo's workspace names one already
+            ws_file.write_text(ws_file.read_text().replace('[paths]\n', '[paths]\nannotations = "annotations.toml"\n'))
         ws = load_workspace(ws_file)
     with pytest.raises(ConfigError) as err:
         ws.load()
