@@ -42,24 +42,33 @@ def window_bounds(
     search only: the stop of sample i is the number of samples whose window
     starts at or before i (see :func:`stops_from_starts`).
     """
+    start = window_starts(t, before_ns, include_before=include_before)
     if t.size == 0:
-        empty = np.zeros(0, dtype=np.intp)
-        return empty, empty
-    # A window longer than the whole record is the same as one just longer than it;
-    # capping keeps t +/- window inside int64.
-    cap = int(t[-1]) - int(t[0]) + 1
-    before_ns, after_ns = min(before_ns, cap), min(after_ns, cap)
-    if before_ns == 0:
-        start = _equal_run_edge(t, "left" if include_before else "right")
-    else:
-        start = sorted_search(t, t, "left" if include_before else "right", shift=-before_ns)
-    if after_ns == before_ns and include_after == include_before and after_ns > 0:
+        return start, start
+    after_ns = min(after_ns, _cap(t))
+    if after_ns == min(before_ns, _cap(t)) and include_after == include_before and after_ns > 0:
         stop = stops_from_starts(start, t.size)
     elif after_ns == 0:
         stop = _equal_run_edge(t, "right" if include_after else "left")
     else:
         stop = sorted_search(t, t, "right" if include_after else "left", shift=after_ns)
     return start, stop
+
+
+def window_starts(t: np.ndarray, before_ns: int, *, include_before: bool) -> np.ndarray:
+    """The start of each sample's window in :func:`window_bounds` (its first index), alone."""
+    if t.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    before_ns = min(before_ns, _cap(t))
+    if before_ns == 0:
+        return _equal_run_edge(t, "left" if include_before else "right")
+    return sorted_search(t, t, "left" if include_before else "right", shift=-before_ns)
+
+
+def _cap(t: np.ndarray) -> int:
+    """A window longer than the whole record is the same as one just longer than it; capping
+    keeps t +/- window inside int64."""
+    return int(t[-1]) - int(t[0]) + 1
 
 
 _BLOCK = 8192
@@ -177,7 +186,15 @@ def running_sums(x: np.ndarray, ok: np.ndarray, *, ref: float, squares: bool = F
     s1 = _cumulative(xz, np.float64)
     if not squares:
         return xz, c, s1
-    s2 = _cumulative(np.square(xz), np.float64)
+    # cumsum block by block, each block's first square added to the sum so far: the same
+    # additions in the same order as one cumsum, without a full array of squares
+    s2 = np.empty(x.size + 1, dtype=np.float64)
+    s2[0] = 0.0
+    for b in blocks(x.size):
+        sq = np.square(xz[b])
+        if b.start:
+            sq[0] += s2[b.start]
+        np.cumsum(sq, out=s2[b.start + 1:b.stop + 1])
     return xz, c, s1, s2
 
 
