@@ -44,6 +44,8 @@ CHECKS = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", 
 # Targets (benchmarks/README.md).
 TARGET_VS_COPY = 20.0           # check time / values.copy() time, at most
 TARGET_VS_PANDAS = 5.0          # pandas reference time / check time, at least
+TARGET_SUITE_VS_PANDAS = 5.0    # plain pandas script / qcpipe suite with aggregate, at least
+TARGET_SUITE_VS_COPY = 60.0     # qcpipe suite with aggregate / values.copy(), at most
 TARGET_WINDOW = 1.2             # suite time with 10x windows / with base windows, at most
 TARGET_LENGTH = 11.0            # suite time on 10 M / on 1 M samples, at most
 TARGET_INGEST = 2.0             # ingest-to-archive / read_csv + NetCDF write floor, at most
@@ -166,6 +168,17 @@ def run_check(name: str, data: dict, params: dict) -> np.ndarray:
 
 def run_suite(data: dict, params: dict[str, dict]) -> list[np.ndarray]:
     return [run_check(name, data, params[name]) for name in CHECKS]
+
+
+#: The checks of one variable's rule set, then their aggregate (the ``suite`` case).
+SUITE_CHECKS = ("gross_range", "climatology", "spike", "rate_of_change", "flat_line", "gap")
+
+
+def run_qc_suite(data: dict, params: dict[str, dict]) -> np.ndarray:
+    """The aggregate flag of the temperature series after the six checks of ``SUITE_CHECKS``."""
+    from qcpipe import checks
+
+    return checks.aggregate_flags(data["values"], [run_check(name, data, params[name]) for name in SUITE_CHECKS])
 
 
 # ----------------------------------------------------------------------- pandas references
@@ -301,6 +314,88 @@ def pandas_check(name: str, data: dict, params: dict) -> np.ndarray:
     raise KeyError(name)
 
 
+def pandas_plain_suite(data: dict, params: dict[str, dict]) -> np.ndarray:
+    """The same suite as a user would write it in pandas, aggregate flag per sample.
+
+    Not the exact definitions of ``pandas_check``: the spike compares each value
+    with the mean of the values just before and after it (neighbour shifts); the
+    rate of change takes the step to the previous valid value (``ffill().diff()``)
+    against the standard deviation of a trailing ``rolling`` time window
+    (``closed="neither"``, the qcpipe window); the flat line flags runs of successive
+    values within the tolerance by their duration (run numbers from ``cumsum``,
+    first and last time per run by ``groupby``); gaps by ``diff`` of the times.
+    The aggregate is the largest of 1, 3 and 4 over the checks (2 and 9 ignored),
+    2 where no check gave one, 9 where the value is missing. Flags are written
+    into numpy arrays by position (no ``reindex`` on a 10 M DatetimeIndex, which
+    alone would cost seconds).
+    """
+    import pandas as pd
+
+    index = pd.DatetimeIndex(data["times"])
+    s = pd.Series(data["values"], index=index)
+    missing = s.isna().to_numpy()
+    out = {}
+
+    g = params["gross_range"]
+    f = np.ones(s.size, dtype=np.int8)
+    f[((s < g["expected_min"]) | (s > g["expected_max"])).to_numpy()] = 3
+    f[((s < g["sensor_min"]) | (s > g["sensor_max"])).to_numpy()] = 4
+    out["gross_range"] = f
+
+    low = pd.Series(np.nan, index=index)
+    high = pd.Series(np.nan, index=index)
+    month = index.month
+    for months, lo, hi in params["climatology"]["ranges"]:
+        in_months = month.isin(months)
+        low[in_months], high[in_months] = lo, hi
+    f = np.ones(s.size, dtype=np.int8)
+    f[((s < low) | (s > high)).to_numpy()] = 3
+    f[low.isna().to_numpy()] = 2
+    out["climatology"] = f
+
+    p = params["spike"]
+    d = (s - (s.shift(1) + s.shift(-1)) / 2).abs()
+    f = np.ones(s.size, dtype=np.int8)
+    f[(d > p["suspect"]).to_numpy()] = 3
+    f[(d > p["fail"]).to_numpy()] = 4
+    f[d.isna().to_numpy()] = 2
+    out["spike"] = f
+
+    p = params["rate_of_change"]
+    sd = s.rolling(pd.Timedelta(seconds=p["window_s"]), closed="neither", min_periods=3).std()
+    step = s.ffill().diff().abs()
+    f = np.ones(s.size, dtype=np.int8)
+    f[(step > p["n_sigma"] * sd).to_numpy()] = 3
+    f[(sd.isna() | step.isna()).to_numpy()] = 2
+    out["rate_of_change"] = f
+
+    p = params["flat_line"]
+    valid = s.dropna()
+    run = (valid.diff().abs() > p["tolerance"]).cumsum()
+    when = pd.Series(valid.index, index=valid.index)
+    by_run = when.groupby(run.to_numpy())
+    lasted = (by_run.transform("last") - by_run.transform("first")).dt.total_seconds().to_numpy()
+    f = np.ones(valid.size, dtype=np.int8)
+    f[lasted >= p["suspect_after_s"]] = 3
+    f[lasted >= p["fail_after_s"]] = 4
+    flat = np.full(s.size, 9, dtype=np.int8)
+    flat[~missing] = f
+    out["flat_line"] = flat
+
+    p = params["gap"]
+    f = np.ones(valid.size, dtype=np.int8)
+    f[(when.diff().dt.total_seconds() > p["max_gap_s"]).to_numpy()] = 3
+    gap = np.full(s.size, 9, dtype=np.int8)
+    gap[~missing] = f
+    out["gap"] = gap
+
+    flags = pd.DataFrame(out, index=index)
+    worst = flags.where(~flags.isin([2, 9]), 0).max(axis=1).to_numpy().astype(np.int8)
+    worst[worst == 0] = 2
+    worst[missing] = 9
+    return worst
+
+
 # ----------------------------------------------------------------------- cases (run in a child)
 
 def case_qc(check: str) -> dict:
@@ -336,6 +431,19 @@ def case_agreement() -> dict:
         ours, ref = run_check(check, data, params[check]), pandas_check(check, data, params[check])
         out[check] = float(np.mean(ours == ref))
     return {"samples": N_SHORT, "agreement": out}
+
+
+def case_suite(samples: int) -> dict:
+    """The qcpipe suite with its aggregate, the plain pandas script and values.copy(), timed in turn."""
+    data = make_series(samples)
+    params = suite_params()
+    cpu: list = []
+    copy_s, suite_s, pandas_s = best_of_interleaved(
+        lambda: data["values"].copy(), lambda: run_qc_suite(data, params),
+        lambda: pandas_plain_suite(data, params), cpu=cpu)
+    same = float(np.mean(run_qc_suite(data, params) == pandas_plain_suite(data, params)))
+    return {"samples": samples, "copy_s": copy_s, "suite_s": suite_s, "pandas_s": pandas_s,
+            "aggregate_equal_share": same, "cpu_s": dict(zip(("copy", "suite", "pandas"), cpu))}
 
 
 def case_window() -> dict:
@@ -538,6 +646,8 @@ def run_case(name: str, pandas_samples: int) -> dict:
         return case_qc(name[3:])
     if name.startswith("pandas:"):
         return case_pandas(name[7:], pandas_samples)
+    if name == "suite":
+        return case_suite(N_SAMPLES)
     return {"agreement": case_agreement, "window": case_window, "length": case_length,
             "ingest": case_ingest, "tide": case_tide, "chunked": case_chunked}[name]()
 
@@ -596,6 +706,21 @@ def main_parent(pandas_samples: int) -> int:
                          f"{speedup:.2f}x (pandas {_fmt_s(pandas_10m)}{note} / {_fmt_s(check_10m)})",
                          f">= {TARGET_VS_PANDAS:g}x", speedup >= TARGET_VS_PANDAS, ref["peak_rss_mb"],
                          ratio=speedup))
+
+    print("  running suite ...", file=sys.stderr, flush=True)
+    su = raw["suite"] = child("suite", pandas_samples)
+    names = "range, climatology, spike, rate of change, flat line, gap, aggregate"
+    speedup = su["pandas_s"] / su["suite_s"]
+    rows.append(_row(f"suite ({names}): plain pandas script / qcpipe (10 M)",
+                     f"{speedup:.2f}x (pandas {_fmt_s(su['pandas_s'])} / {_fmt_s(su['suite_s'])}; "
+                     f"same aggregate flag on {su['aggregate_equal_share'] * 100:.2f} % of samples)",
+                     f">= {TARGET_SUITE_VS_PANDAS:g}x", speedup >= TARGET_SUITE_VS_PANDAS, su["peak_rss_mb"],
+                     ratio=speedup))
+    ratio = su["suite_s"] / su["copy_s"]
+    rows.append(_row("suite with aggregate / values.copy() (10 M)",
+                     f"{ratio:.1f}x ({_fmt_s(su['suite_s'])} / {_fmt_s(su['copy_s'])})",
+                     f"<= {TARGET_SUITE_VS_COPY:g}x", ratio <= TARGET_SUITE_VS_COPY, su["peak_rss_mb"],
+                     ratio=ratio))
 
     print("  running agreement ...", file=sys.stderr, flush=True)
     agree = raw["agreement"] = child("agreement", pandas_samples)

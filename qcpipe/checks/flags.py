@@ -14,6 +14,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from .windows import blocks
+
 PASS = np.int8(1)
 NOT_EVALUATED = np.int8(2)
 SUSPECT = np.int8(3)
@@ -55,6 +57,8 @@ _FLAG_OF_RANK = np.array([NOT_EVALUATED, PASS, SUSPECT, FAIL], dtype=np.int8)
 
 
 def _checked_flags(flag_arrays: Sequence[np.ndarray], shape: tuple[int, ...] | None):
+    """The arrays, their shapes and integer dtypes checked; the flag values of one-byte arrays are
+    checked as they are ranked (:func:`_worst`), those of wider arrays here."""
     arrays = [np.asarray(a) for a in flag_arrays]
     if shape is None and arrays:
         shape = arrays[0].shape
@@ -69,22 +73,45 @@ def _checked_flags(flag_arrays: Sequence[np.ndarray], shape: tuple[int, ...] | N
                 f"flag_arrays[{k}] has dtype {a.dtype}; expected integer flags "
                 f"({', '.join(str(v) for v in FLAG_VALUES)})"
             )
-        bad = ~np.isin(a, FLAG_VALUES)
-        if bad.any():
-            i = np.unravel_index(np.argmax(bad), a.shape)
-            idx = i[0] if len(i) == 1 else i
-            raise ValueError(
-                f"flag_arrays[{k}] holds {a[i]} at index {idx}; allowed flag values "
-                f"are {', '.join(str(v) for v in FLAG_VALUES)}"
-            )
+        if a.dtype.itemsize > 1:
+            _check_flag_values(k, a)
+            arrays[k] = a.astype(np.int8)
     return arrays, shape
 
 
+def _check_flag_values(k: int, a: np.ndarray) -> None:
+    bad = ~np.isin(a, FLAG_VALUES)
+    if bad.any():
+        i = np.unravel_index(np.argmax(bad), a.shape)
+        idx = i[0] if len(i) == 1 else i
+        raise ValueError(
+            f"flag_arrays[{k}] holds {a[i]} at index {idx}; allowed flag values "
+            f"are {', '.join(str(v) for v in FLAG_VALUES)}"
+        )
+
+
+# Rank of each byte value of a one-byte flag array read as uint8. A byte that is no flag
+# value ranks _NOT_A_FLAG, above every verdict, so one maximum per block finds it.
+_NOT_A_FLAG = np.int8(4)
+_RANK_OF_BYTE = np.full(256, _NOT_A_FLAG, dtype=np.int8)
+_RANK_OF_BYTE[FLAG_VALUES.view(np.uint8)] = _RANK[FLAG_VALUES]
+
+
 def _worst(arrays: list[np.ndarray], shape: tuple[int, ...]) -> np.ndarray:
-    rank = np.zeros(shape, dtype=np.int8)
-    for a in arrays:
-        np.maximum(rank, _RANK[a], out=rank)
-    return _FLAG_OF_RANK[rank]
+    """Flag of the worst verdict per sample of one-byte flag arrays, block by block (the
+    temporaries stay in cache); a ValueError names the first array holding a byte that is no flag."""
+    size = int(np.prod(shape, dtype=np.int64))
+    as_bytes = [np.ravel(a).view(np.uint8) for a in arrays]
+    out = np.empty(size, dtype=np.int8)
+    for b in blocks(size):
+        rank = np.zeros(b.stop - b.start, dtype=np.int8)
+        for a in as_bytes:
+            np.maximum(rank, _RANK_OF_BYTE.take(a[b]), out=rank)
+        if rank.size and rank.max() == _NOT_A_FLAG:
+            for k, a in enumerate(arrays):
+                _check_flag_values(k, a)
+        _FLAG_OF_RANK.take(rank, out=out[b])
+    return out.reshape(shape)
 
 
 def worst_flag(flag_arrays: Sequence[np.ndarray]) -> np.ndarray:

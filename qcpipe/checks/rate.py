@@ -11,10 +11,10 @@ from .windows import (
     constant_windows,
     distinct_times,
     last_change_before_stop,
-    previous_valid_index,
     reference_value,
     running_sums,
     window_bounds,
+    window_starts,
 )
 from .flags import MISSING, NOT_EVALUATED, PASS, SUSPECT
 
@@ -73,16 +73,18 @@ def rate_of_change_flags(
     n_sigma = v.positive(n_sigma, func=func, name="n_sigma")
     min_samples = v.count(min_samples, func=func, name="min_samples", minimum=2)
 
-    if x.size == 0:
+    if not ok.any():
         return np.full(x.shape, MISSING, dtype=np.int8)
     _, c, s1, s2 = running_sums(x, ok, ref=reference_value(x, ok), squares=True)
-    start, stop = window_bounds(t, window_ns, 0, include_before=False, include_after=False)
     if distinct_times(t):
+        start = window_starts(t, window_ns, include_before=False)
         stop = None  # the window ends just before the sample itself: stop_i = i
+    else:
+        start, stop = window_bounds(t, window_ns, 0, include_before=False, include_after=False)
 
-    prev = previous_valid_index(ok, c)
-    has_prev = prev >= 0
-    step = x[prev]  # prev = -1 picks the last value; those samples are not evaluated below
+    # the previous valid value of sample i is the c[i]-th valid value
+    has_prev = c[:-1] > 0
+    step = x[ok][c[:-1] - 1]  # c = 0 picks the last one; those samples are not evaluated below
     np.subtract(x, step, out=step)
     np.abs(step, out=step)
     with np.errstate(invalid="ignore"):

@@ -42,24 +42,33 @@ def window_bounds(
     search only: the stop of sample i is the number of samples whose window
     starts at or before i (see :func:`stops_from_starts`).
     """
+    start = window_starts(t, before_ns, include_before=include_before)
     if t.size == 0:
-        empty = np.zeros(0, dtype=np.intp)
-        return empty, empty
-    # A window longer than the whole record is the same as one just longer than it;
-    # capping keeps t +/- window inside int64.
-    cap = int(t[-1]) - int(t[0]) + 1
-    before_ns, after_ns = min(before_ns, cap), min(after_ns, cap)
-    if before_ns == 0:
-        start = _equal_run_edge(t, "left" if include_before else "right")
-    else:
-        start = sorted_search(t, t - before_ns, "left" if include_before else "right")
-    if after_ns == before_ns and include_after == include_before and after_ns > 0:
+        return start, start
+    after_ns = min(after_ns, _cap(t))
+    if after_ns == min(before_ns, _cap(t)) and include_after == include_before and after_ns > 0:
         stop = stops_from_starts(start, t.size)
     elif after_ns == 0:
         stop = _equal_run_edge(t, "right" if include_after else "left")
     else:
-        stop = sorted_search(t, t + after_ns, "right" if include_after else "left")
+        stop = sorted_search(t, t, "right" if include_after else "left", shift=after_ns)
     return start, stop
+
+
+def window_starts(t: np.ndarray, before_ns: int, *, include_before: bool) -> np.ndarray:
+    """The start of each sample's window in :func:`window_bounds` (its first index), alone."""
+    if t.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    before_ns = min(before_ns, _cap(t))
+    if before_ns == 0:
+        return _equal_run_edge(t, "left" if include_before else "right")
+    return sorted_search(t, t, "left" if include_before else "right", shift=-before_ns)
+
+
+def _cap(t: np.ndarray) -> int:
+    """A window longer than the whole record is the same as one just longer than it; capping
+    keeps t +/- window inside int64."""
+    return int(t[-1]) - int(t[0]) + 1
 
 
 _BLOCK = 8192
@@ -82,26 +91,29 @@ def blocks(n: int, size: int | None = None):
         yield slice(i, min(i + size, n))
 
 
-def sorted_search(t: np.ndarray, keys: np.ndarray, side: str) -> np.ndarray:
-    """``numpy.searchsorted(t, keys, side)`` for sorted `keys`, block by block.
+def sorted_search(t: np.ndarray, keys: np.ndarray, side: str, *, shift: int = 0) -> np.ndarray:
+    """``numpy.searchsorted(t, keys + shift, side)`` for sorted `keys`, block by block.
 
     The answers for a block of consecutive sorted keys lie between the answers
     for its first and last key, so each block is searched in that slice of `t`
     only: the slice stays in cache, which is about a quarter faster on 10 M
-    samples than one search over the whole array (benchmarks/run.py).
+    samples than one search over the whole array (benchmarks/run.py). The keys
+    plus `shift` (int64 nanoseconds) are formed one block at a time, so a window
+    edge ``t + shift`` needs no array of its own.
     """
     n = keys.size
     if n <= 8 * _BLOCK:
-        return np.searchsorted(t, keys, side=side)
+        return np.searchsorted(t, keys + shift if shift else keys, side=side)
     out = np.empty(n, dtype=np.intp)
-    firsts = keys[::_BLOCK]
-    lasts = keys[np.minimum(np.arange(_BLOCK - 1, n + _BLOCK - 1, _BLOCK), n - 1)]
+    firsts = keys[::_BLOCK] + shift
+    lasts = keys[np.minimum(np.arange(_BLOCK - 1, n + _BLOCK - 1, _BLOCK), n - 1)] + shift
     lo = np.searchsorted(t, firsts, side=side)
     hi = np.searchsorted(t, lasts, side=side)
     for b in range(firsts.size):
         i0 = b * _BLOCK
         seg = slice(lo[b], hi[b] + 1)
-        np.add(np.searchsorted(t[seg], keys[i0:i0 + _BLOCK], side=side), lo[b], out=out[i0:i0 + _BLOCK])
+        block = keys[i0:i0 + _BLOCK] + shift
+        np.add(np.searchsorted(t[seg], block, side=side), lo[b], out=out[i0:i0 + _BLOCK])
     return out
 
 
@@ -174,7 +186,15 @@ def running_sums(x: np.ndarray, ok: np.ndarray, *, ref: float, squares: bool = F
     s1 = _cumulative(xz, np.float64)
     if not squares:
         return xz, c, s1
-    s2 = _cumulative(np.square(xz), np.float64)
+    # cumsum block by block, each block's first square added to the sum so far: the same
+    # additions in the same order as one cumsum, without a full array of squares
+    s2 = np.empty(x.size + 1, dtype=np.float64)
+    s2[0] = 0.0
+    for b in blocks(x.size):
+        sq = np.square(xz[b])
+        if b.start:
+            sq[0] += s2[b.start]
+        np.cumsum(sq, out=s2[b.start + 1:b.stop + 1])
     return xz, c, s1, s2
 
 

@@ -9,6 +9,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from qcpipe.checks import windows as _windows
 from qcpipe.checks.windows import (
     _equal_run_edge,
     constant_windows,
@@ -128,3 +129,28 @@ def test_running_max_in_blocks_matches_plain_loop(items):
         want_end.append(max(x[j] for j in same if j >= i))
     np.testing.assert_array_equal(from_start, np.array(want_start, dtype=np.float64))
     np.testing.assert_array_equal(to_end, np.array(want_end, dtype=np.float64))
+
+
+@st.composite
+def _irregular_times(draw):
+    """Sorted int64 times with repeated times (steps of 0) and gaps far longer than the windows."""
+    n = draw(st.integers(1, 200))
+    steps = draw(st.lists(st.sampled_from([0, 0, 1, 2, 3, 7, 50, 1000, 10**9]), min_size=n, max_size=n))
+    t0 = draw(st.integers(-2**50, 2**50))
+    return t0 + np.cumsum(np.array(steps, dtype=np.int64))
+
+
+@settings(max_examples=300, deadline=None)
+@given(_irregular_times(), st.integers(0, 2000), st.integers(0, 2000), st.booleans(), st.booleans(),
+       st.sampled_from([1, 2, 5, 8192]))
+def test_window_edges_equal_numpy_searchsorted(t, before, after, include_before, include_after, block):
+    """Every window edge (both sides, open or closed, zero width, symmetric or not), searched block by
+    block (blocks of 1, 2 and 5 keys put even short series on the block path) or in one call."""
+    saved = _windows._BLOCK
+    _windows._BLOCK = block
+    try:
+        start, stop = window_bounds(t, before, after, include_before=include_before, include_after=include_after)
+    finally:
+        _windows._BLOCK = saved
+    np.testing.assert_array_equal(start, np.searchsorted(t, t - before, "left" if include_before else "right"))
+    np.testing.assert_array_equal(stop, np.searchsorted(t, t + after, "right" if include_after else "left"))
