@@ -14,7 +14,8 @@
 
 ``process`` and ``rerun`` start the orchestrator only when the run has work: a run with
 nothing to do is decided and recorded at once (``pipeline.run.run_if_nothing_to_do``).
-Expected failures print one line ``qcpipe: error: ...`` and exit 2.
+Expected failures print one line ``qcpipe: error: ...`` and exit 2; output into a pipe closed early
+(``qcpipe holdings | head``) ends quietly with status 141 (``EXIT_BROKEN_PIPE``).
 """
 
 from __future__ import annotations
@@ -26,7 +27,23 @@ from pathlib import Path
 
 from .errors import QcpipeError, is_transient
 
-DEFAULT_WORKSPACE = "qcpipe-workspace.toml"
+DEFAULT_WORKSPACE = "workspace.toml"
+DEMO_WORKSPACE = "sample_raw/workspace.toml"
+
+#: each command's example in its --help, on the demo (run from the repository's folder after 'make demo')
+EXAMPLES = {
+    "process": f"qcpipe process --workspace {DEMO_WORKSPACE}",
+    "holdings": f"qcpipe holdings --workspace {DEMO_WORKSPACE} --status quarantined",
+    "rerun": f"qcpipe rerun --workspace {DEMO_WORKSPACE} -d kc-mid-temp-2026-09",
+    "apply-clock": f"qcpipe apply-clock --workspace {DEMO_WORKSPACE} kc-mid-probe-2026-09 --by \"A. Reviewer\"",
+    "diff": f"qcpipe diff --workspace {DEMO_WORKSPACE} kc-mid-temp-2026-09",
+    "lineage": f"qcpipe lineage --workspace {DEMO_WORKSPACE} kc-mid-temp-2026-09",
+    "audit": f"qcpipe audit --workspace {DEMO_WORKSPACE}",
+    "package": f"qcpipe package --workspace {DEMO_WORKSPACE} -d kc-mid-temp-2026-09 --out bags",
+    "check": f"qcpipe check --workspace {DEMO_WORKSPACE}",
+    "inspect": f"qcpipe inspect --workspace {DEMO_WORKSPACE}",
+    "schedule": f"qcpipe schedule --workspace {DEMO_WORKSPACE} --cron \"0 2 * * *\"",
+}
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -36,7 +53,7 @@ def _parser() -> argparse.ArgumentParser:
     def ws(sp):
         sp.add_argument("-w", "--workspace", default=DEFAULT_WORKSPACE,
                         help=f"workspace file naming register, layouts, rules, inbox, archive "
-                             f"(default: {DEFAULT_WORKSPACE})")
+                             f"(default: {DEFAULT_WORKSPACE} in the current folder; the demo's is {DEMO_WORKSPACE})")
 
     sp = sub.add_parser("process", help="process new files in the inbox once (runs the nightly flow)")
     ws(sp)
@@ -51,7 +68,8 @@ def _parser() -> argparse.ArgumentParser:
                     help="which table to list (default all)")
     sp.add_argument("--station", help="only this station")
     sp.add_argument("--deployment", help="only this deployment")
-    sp.add_argument("--status", choices=["archived", "quarantined"], help="raw files with this status only")
+    sp.add_argument("--status", choices=["archived", "quarantined"], help="raw files with this status only "
+                    "(lists only raw files unless --what says otherwise)")
     sp.add_argument("--all-versions", action="store_true", help="list every dataset version, not only the latest")
 
     sp = sub.add_parser("rerun", help="re-QC from stored data what changed, or the given deployments")
@@ -114,6 +132,9 @@ def _parser() -> argparse.ArgumentParser:
     ws(sp)
     sp.add_argument("--cron", default="0 2 * * *", help="cron expression (default '0 2 * * *', 02:00)")
     sp.add_argument("--timezone", default="UTC", help="time zone of the cron expression (default UTC)")
+    for name, sp in sub.choices.items():
+        sp.formatter_class = argparse.RawDescriptionHelpFormatter
+        sp.epilog = f"example, on the demo (from the repository's folder, after 'make demo'):\n  {EXAMPLES[name]}"
     return p
 
 
@@ -302,6 +323,14 @@ def _diff(args) -> int:
 
     ctx = _context(args)
     versions = _versions(ctx, args.deployment)
+    if len(versions) == 1 and args.old is None and args.new in (None, *versions):
+        (v, r), = versions.items()
+        print(f"deployment {args.deployment!r} has one dataset version, v{v:03d}: nothing to compare it with\n"
+              f"  v{v:03d}: {Path(r['path']).name}, made {r['created']}, {r['samples']} samples, "
+              f"rule set {r['rules_name']}, from {len(r['raw_sha256'])} raw file(s)\n"
+              f"a second version is written when its inputs change (rules, register, raw files) or by "
+              f"'qcpipe rerun -d {args.deployment}'; 'qcpipe lineage' shows what v{v:03d} was made from")
+        return 0
     new = args.new or max(versions)
     old = args.old or max((v for v in versions if v < new), default=None)
     for v in (old, new):
@@ -334,14 +363,26 @@ def _lineage(args) -> int:
     print(f"  raw files ({len(r['raw_sha256'])}):")
     for sha in r["raw_sha256"]:
         x = by_sha.get(sha, {})
-        print(f"    {sha[:12]} {x.get('original_name', '?'):<34} {x.get('time_start') or ''} .. "
-              f"{x.get('time_end') or ''}  from {x.get('original_path', '?')}")
+        print(f"    {sha[:12]} {x.get('original_name', '?'):<34} {_iso_utc(x.get('time_start'))} .. "
+              f"{_iso_utc(x.get('time_end'))}  from {x.get('original_path', '?')}")
     inputs = r.get("qc_inputs") or {}
     for var, rules in (inputs.get("rules") or {}).items():
         print(f"  rules for {var}: {rules}")
     for a in inputs.get("annotations") or []:
         print(f"  annotation: {a['start']} to {a['end']} flag {a['flag']} ({a['reviewer']}): {a['reason']}")
     return 0
+
+
+def _iso_utc(value) -> str:
+    """A time from the catalog (ISO text to the nanosecond, or integer nanoseconds since 1970-01-01, UTC) as
+    ISO 8601 UTC to the second, e.g. ``2026-09-14T10:19:58Z`` (truncated, as ``qcpipe diff`` shows times)."""
+    import numpy as np
+
+    if value is None or str(value).strip() == "":
+        return "?"
+    text = str(value).strip()
+    t = np.datetime64(int(text), "ns") if text.lstrip("-").isdigit() else np.datetime64(text.removesuffix("Z"))
+    return np.datetime_as_string(t.astype("datetime64[s]"), unit="s") + "Z"
 
 
 def _audit(args) -> int:
@@ -367,6 +408,7 @@ def _package(args) -> int:
 
 def _holdings(args) -> int:
     from .archive.catalog import Catalog
+    from .checks.flags import FLAG_WORDS
     from .config import load_workspace
 
     ws = load_workspace(args.workspace)
@@ -375,8 +417,9 @@ def _holdings(args) -> int:
         print(f"archive {ws.archive} is empty (no catalog yet); run 'qcpipe process' first")
         return 0
     cat = Catalog(cat_path)
+    what = "raw" if args.status and args.what == "all" else args.what     # a status is of raw files only
     where = {k: v for k, v in (("station", args.station), ("deployment", args.deployment)) if v}
-    if args.what in ("datasets", "all"):
+    if what in ("datasets", "all"):
         rows = cat.datasets(**where)
         if not args.all_versions:
             latest = {}
@@ -385,19 +428,18 @@ def _holdings(args) -> int:
             rows = list(latest.values())
         print(f"datasets ({len(rows)}):")
         for r in rows:
-            agg = {}
-            for per in r["flag_counts"].values():
-                for k, v in per.items():
-                    agg[k] = agg.get(k, 0) + v
             print(f"  {r['station']:<10} {r['deployment']:<22} v{r['version']:03d} {r['samples']:>7} samples  "
-                  f"flags {dict(sorted(agg.items()))}  {Path(r['path']).name}")
-    if args.what in ("raw", "all"):
+                  f"{Path(r['path']).name}")
+            for var, per in r["flag_counts"].items():
+                counts = ", ".join(f"{FLAG_WORDS[k]} {per[k]}" for k in FLAG_WORDS if per.get(k))
+                print(f"      {var:<22} aggregate flags: {counts}")
+    if what in ("raw", "all"):
         rows = cat.raw_files(**where, **({"status": args.status} if args.status else {}))
         print(f"raw files ({len(rows)}):")
         for r in rows:
             where = f"{r['station']}/{r['deployment']}" if r["status"] == "archived" else r["reason"]
             print(f"  {r['sha256'][:12]} {r['status']:<11} {r['original_name']:<36} {where}")
-    if args.what in ("runs", "all"):
+    if what in ("runs", "all"):
         rows = cat.runs()
         print(f"runs ({len(rows)}):")
         for r in rows:
@@ -464,8 +506,35 @@ def _inspect(args) -> int:
     return 0
 
 
+# the exit status of a command whose output pipe was closed early: 128 + SIGPIPE (13), what a shell
+# shows for a program the signal ended (POSIX, "Exit Status for Commands"); Python ignores SIGPIPE,
+# so qcpipe sees BrokenPipeError instead and ends with this status, without a traceback
+EXIT_BROKEN_PIPE = 141
+
+
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    """Run one qcpipe command; its exit status. Output to a pipe closed early (``qcpipe holdings | head``)
+    ends quietly with ``EXIT_BROKEN_PIPE``."""
+    import os
+
+    try:
+        status = _main(argv)
+        sys.stdout.flush()                 # a closed pipe shows here, not at interpreter exit
+        return status
+    except BrokenPipeError:
+        # nothing more can be written; point stdout at /dev/null so the flush at exit cannot fail again
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+        return EXIT_BROKEN_PIPE
+
+
+def _main(argv: list[str] | None) -> int:
+    try:
+        args = _parser().parse_args(argv)
+    except SystemExit:
+        sys.stdout.flush()                 # --help into a closed pipe: BrokenPipeError, handled in main
+        raise
     handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule,
                "rerun": _rerun, "diff": _diff, "lineage": _lineage, "audit": _audit,
                "package": _package, "apply-clock": _apply_clock, "inspect": _inspect}[args.command]
@@ -474,6 +543,8 @@ def main(argv: list[str] | None = None) -> int:
     except QcpipeError as err:
         print(f"qcpipe: error: {err}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        raise                              # the reader went away: main ends quietly
     except (OSError, sqlite3.OperationalError) as err:
         if not is_transient(err):
             raise                          # not an expected failure: keep the traceback for the bug report

@@ -187,7 +187,7 @@ def test_rerun_command_reprocesses_dependents(work):
     # a new barometer record changes the gauge's air pressure, and so everything the gauge feeds
     assert {d for d in again if again[d] != after[d]} == set(after)
     r = run_cli("rerun", "--workspace", ws(work), "-q")
-    assert "nothing new" in r.stdout
+    assert r.stdout.startswith("nothing changed")
     r = run_cli("rerun", "--workspace", ws(work), "--deployment", "no-such")
     assert r.returncode == 2 and "no deployment 'no-such'" in r.stderr
 

@@ -10,6 +10,7 @@ import hashlib
 import json
 import re
 import tomllib
+import typing
 from pathlib import Path
 from typing import Annotated, Any, TypeVar
 
@@ -116,14 +117,51 @@ def validate(model: type[M], data: dict[str, Any], path: Path) -> M:
         return model.model_validate(data)
     except pydantic.ValidationError as exc:
         errs = exc.errors(include_url=False)
+        # an unknown key is most often a misspelt one, which also makes its right spelling "missing":
+        # name the unknown key first, with the keys its table takes
+        errs.sort(key=lambda e: e.get("type") != "extra_forbidden")
         first = errs[0]
         key = _key_path(tuple(first["loc"]), data)
+        expected = _keys_at(model, tuple(first["loc"])[:-1]) if first.get("type") == "extra_forbidden" else None
+        if expected:
+            table = tuple(first["loc"])[:-1]
+            missing = [shown_key(e["loc"][-1]) for e in errs if e.get("type") == "missing"
+                       and tuple(e["loc"])[:-1] == table]
+            absent = f" ({', '.join(missing)} missing)" if missing else ""
+            raise ConfigError(f"{path}: key {key}: unknown key; this table takes {', '.join(expected)}{absent}; "
+                              f"{_hint(first)}") from None
         msg = shown(first["msg"].removeprefix("Value error, "))
         more = f" (and {len(errs) - 1} more problem{'s' if len(errs) > 2 else ''})" if len(errs) > 1 else ""
         bad = ""
         if first.get("type") not in ("missing",) and "input" in first and not isinstance(first["input"], (dict, list)):
             bad = f" (got {shown(repr(first['input']))[:200]})"
         raise ConfigError(f"{path}: key {key}: {msg}{bad}; {_hint(first)}{more}") from None
+
+
+def _keys_at(model: type[pydantic.BaseModel], loc: tuple) -> list[str] | None:
+    """The keys the table at ``loc`` (a validation error's location) of ``model`` takes; None when the
+    location does not lead through models' fields (a table of free names, say)."""
+    node: Any = model
+    for item in loc:
+        if isinstance(item, int):
+            continue                      # an item of a list: its model was taken from the list's type
+        fields = getattr(node, "model_fields", None)
+        if not fields or item not in fields:
+            return None
+        node = _model_in(fields[item].annotation)
+    fields = getattr(node, "model_fields", None)
+    return [f.alias or name for name, f in fields.items()] if fields else None
+
+
+def _model_in(annotation: Any) -> type[pydantic.BaseModel] | None:
+    """The model inside a field's type (``Spike | None``, ``list[Season]``), if there is one."""
+    if isinstance(annotation, type) and issubclass(annotation, pydantic.BaseModel):
+        return annotation
+    for arg in typing.get_args(annotation):
+        found = _model_in(arg)
+        if found is not None:
+            return found
+    return None
 
 
 def content_sha256(data: Any) -> str:

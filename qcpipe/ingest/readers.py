@@ -86,7 +86,29 @@ def shown_name(path: str | Path) -> str:
     return shown_text(Path(path).name)
 
 
+def looks_like_utf16(data: bytes) -> bool:
+    """Whether ``data`` looks like UTF-16 text: it starts with a UTF-16 byte-order mark (FF FE or FE FF,
+    not UTF-32's FF FE 00 00), or, without one, at least 3/4 of its first 256 byte pairs hold a NUL on the
+    same side and at most 1/16 on the other (ASCII characters in UTF-16 LE or BE are one byte and a NUL;
+    Unicode Standard, section 3.9, UTF-16 encoding form, from memory; the thresholds are a judgement call,
+    common practice, no source)."""
+    if data.startswith((codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE)):
+        return False                      # FF FE 00 00 also begins with UTF-16 LE's mark
+    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        return True
+    head = data[:512]
+    pairs = len(head) // 2
+    if pairs < 8:
+        return False
+    nul_even, nul_odd = head[0:2 * pairs:2].count(0), head[1:2 * pairs:2].count(0)
+    return max(nul_even, nul_odd) >= 0.75 * pairs and min(nul_even, nul_odd) <= pairs / 16
+
+
 def _decode(path: Path, data: bytes, encoding: str) -> str:
+    if not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")) and looks_like_utf16(data):
+        raise ParseError(f"{shown_name(path)}: looks like UTF-16 text (a UTF-16 byte-order mark, or a NUL byte "
+                         f"beside every character), but its logger layout reads {encoding}; set encoding = "
+                         "\"utf-16\" in the layout if the logger writes UTF-16, or save the file as UTF-8")
     if data.startswith(_BOM_UTF8) and not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
         data = data[len(_BOM_UTF8):]      # a UTF-8 byte-order mark is not part of the first line
     try:

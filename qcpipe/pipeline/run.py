@@ -241,7 +241,7 @@ def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None, wo
 
     ``work``: what :func:`plan.pending_work` found under the lock this run holds (default: asked here)."""
     run_id = ctx.catalog.start_run("rerun")
-    summary = RunSummary(archive=str(ctx.paths.root))
+    summary = RunSummary(archive=str(ctx.paths.root), kind="rerun")
     outcome = "failed"
     try:
         touched = refresh_inputs(ctx, runner, summary, work or pending_work(ctx, inbox=False))

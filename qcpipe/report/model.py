@@ -92,6 +92,7 @@ class RunSummary:
     quarantined: list = field(default_factory=list)      # Quarantined
     results: list = field(default_factory=list)          # DatasetWritten
     archive: str = ""
+    kind: str = "nightly"                                # "nightly" (inbox and changes) or "rerun" (changes only)
 
     reruns: dict = field(default_factory=dict)          # deployment -> why it was re-QC'd
     notices: list = field(default_factory=list)          # run-level Notice records (not of one deployment)

@@ -17,6 +17,10 @@ def air_pressure_words(a: dict) -> str:
 
 def summary_lines(run: RunSummary) -> list[str]:
     """The terminal summary of a run, one string per line."""
+    if run.nothing_new and run.kind == "rerun":
+        return [f"nothing changed: every dataset in the archive {run.archive} was made from the current rules, "
+                "register, constants, annotations and software; nothing re-QC'd, nothing written "
+                "(to re-QC one anyway: qcpipe rerun -d DEPLOYMENT)"]
     if run.nothing_new:
         return [f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
     out = [f"files: {run.files_seen} in inbox, {run.ingested} ingested, {len(run.quarantined)} quarantined, "

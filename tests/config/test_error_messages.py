@@ -106,6 +106,10 @@ def test_register_errors(tmp_path, old, new, key, words):
     ('units = "degC"', 'units = "degF"', "variable.temperature.units", "must be in 'degC'"),
     ('[variable.temperature]', '[variable.temprature]', "variable.temprature", "unknown variable"),
     ('spike = {', 'spikes = {', "variable.temperature.spikes", "remove it or check its spelling"),
+    # a typo inside a table names the unknown key, the keys the table takes and the one now missing
+    ('suspect = 2.0', 'suspct = 2.0', "variable.temperature.spike.suspct",
+     "unknown key; this table takes half_window, suspect, fail, min_neighbours, one_sided_edges (suspect missing); "
+     "remove it or check its spelling"),
     ('fail = 5.0 }', 'fail = 5.0, one_sided_edges = "yes" }', "variable.temperature.spike.one_sided_edges",
      "valid boolean"),
     ('fail_after = "6 h" }', 'fail_after = "6 h", reference = "successive" }',
@@ -113,7 +117,7 @@ def test_register_errors(tmp_path, old, new, key, words):
     ('fail_after = "6 h" }', 'fail_after = "6 h", mode = "realtime" }', "variable.temperature.flat_line.mode",
      "'delayed' or 'real_time'"),
 ], ids=["inverted-limits", "number-duration", "negative-duration", "fail-below-suspect", "units", "typo-var",
-        "typo-check", "one-sided-not-bool", "flat-reference", "flat-mode"])
+        "typo-check", "typo-in-table", "one-sided-not-bool", "flat-reference", "flat-mode"])
 def test_rule_errors(tmp_path, old, new, key, words):
     assert old in RULES
     with pytest.raises(ConfigError) as info:

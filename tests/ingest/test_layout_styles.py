@@ -295,6 +295,28 @@ def test_utf16_with_its_byte_order_mark(tmp_path):
     np.testing.assert_array_equal(table.values["temperature"], [280.5])
 
 
+@pytest.mark.parametrize("codec", ["utf-16", "utf-16-le", "utf-16-be"], ids=["bom", "le-no-bom", "be-no-bom"])
+@pytest.mark.parametrize("layout_encoding", ["utf-8", "latin-1"])
+def test_utf16_read_as_another_encoding_is_refused_saying_it_looks_like_utf16(tmp_path, codec, layout_encoding):
+    """The bytes are made by Python's own codecs (stdlib), not by qcpipe."""
+    lay = make(delimiter="\t", encoding=layout_encoding, time={"columns": ["t"], "format": "%Y-%m-%d %H:%M"},
+               variables={"temperature": {"column": "v", "units": "K"}})
+    data = "t\tv\r\n2026-01-01 00:00\t280.5\r\n2026-01-01 00:10\t280.6\r\n".encode(codec)
+    with pytest.raises(ParseError) as err:
+        read_raw_file(write(tmp_path, data), lay, "wide")
+    text = str(err.value)
+    assert "looks like UTF-16 text" in text and f"reads {layout_encoding}" in text and "\n" not in text
+
+
+@pytest.mark.parametrize("codec", ["utf-8", "latin-1", "utf-32"])
+def test_text_that_is_not_utf16_does_not_look_like_it(codec):
+    from qcpipe.ingest.readers import looks_like_utf16
+
+    text = "t,v\n2026-01-01 00:00,12.5 \u00b0C\n" * 20
+    assert not looks_like_utf16(text.encode(codec))
+    assert looks_like_utf16(text.encode("utf-16-le")) and looks_like_utf16(text.encode("utf-16-be"))
+
+
 # 12 --------------------------------------------------------------------------------------------
 def test_strftime_offset_per_row_with_space(tmp_path):
     lay = make(delimiter="|", time={"columns": ["at"], "format": "%Y-%m-%d %H:%M %z"},
