@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import errno
 import os
-import shutil
 import sqlite3
 
 import pytest
@@ -74,7 +73,8 @@ def test_paths_stored_relative_and_resolved_against_where_the_catalog_is(tmp_pat
 
     # the archive moved: the same catalog file, opened from the new place, gives the new place's paths
     moved = tmp_path / "b" / "restored"
-    shutil.move(root, moved)
+    moved.parent.mkdir()
+    os.rename(root, moved)
     again = Catalog(moved / "catalog.sqlite")
     v1, v2 = again.dataset_versions("dep1")
     assert v1["path"] == str(moved.resolve() / "datasets" / "st1" / "dep1_v001.nc")
