@@ -357,8 +357,10 @@ def _lineage(args) -> int:
     by_sha = {x["sha256"]: x for x in ctx.catalog.raw_files()}
     print(f"dataset {Path(r['path']).name} (version {v}, made {r['created']}, sha256 {r.get('sha256') or '?'})")
     print(f"  software: qcpipe {r['software_version']}")
-    print(f"  rule set: {r['rules_name']} sha256 {r['rules_sha256']}")
-    print(f"  station register: sha256 {r['register_sha256']}")
+    kept = {k: ctx.paths.config_snapshot(k, r[f"{k}_sha256"]) for k in ("rules", "register")}
+    kept = {k: f" (copy as used: {p.relative_to(ctx.paths.root)})" if p.is_file() else "" for k, p in kept.items()}
+    print(f"  rule set: {r['rules_name']} sha256 {r['rules_sha256']}{kept['rules']}")
+    print(f"  station register: sha256 {r['register_sha256']}{kept['register']}")
     print(f"  QC inputs: sha256 {r.get('qc_key') or '?'}")
     print(f"  raw files ({len(r['raw_sha256'])}):")
     for sha in r["raw_sha256"]:

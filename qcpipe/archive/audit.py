@@ -37,7 +37,9 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
 
     Problems: a raw file that is neither archived nor quarantined, a quarantined
     file without a reason, a missing copy, a copy or dataset whose SHA-256 differs
-    from the catalog's (tampering or corruption).  Inbox files not in the
+    from the catalog's (tampering or corruption), a copy or dataset the catalog
+    places outside this archive (``paths.root``: the archive given is the one
+    checked, never another one the catalog may point at).  Inbox files not in the
     catalog are listed as not yet processed; archive files the catalog does not
     know are listed as orphans.
     """
@@ -58,7 +60,10 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
             continue
         copy = Path(r["archived_path"] or "")
         known_paths.add(copy.resolve())
-        if not copy.is_file():
+        if r["archived_path"] and not _inside(copy, paths.root):
+            res.problems.append(f"{name}: the catalog places its archive copy at {copy}, outside this archive "
+                                f"{paths.root}")
+        elif not copy.is_file():
             res.problems.append(f"{name}: archive copy {copy} is missing")
         elif sha256_of_file(copy) != r["sha256"]:
             res.problems.append(f"{name}: archive copy {copy} does not match its SHA-256 {r['sha256'][:12]}")
@@ -68,8 +73,10 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
         if d.get("pruned"):
             continue
         res.datasets_checked += 1
-        if not p.is_file():
-            res.problems.append(f"dataset {p.name} is missing")
+        if not _inside(p, paths.root):
+            res.problems.append(f"dataset {p.name}: the catalog places it at {p}, outside this archive {paths.root}")
+        elif not p.is_file():
+            res.problems.append(f"dataset {p.name} is missing (expected at {p})")
         elif d.get("sha256") and sha256_of_file(p) != d["sha256"]:
             res.problems.append(f"dataset {p.name} does not match its SHA-256 {d['sha256'][:12]}")
     seen = {r["sha256"] for r in rows}
@@ -82,3 +89,8 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
             if p.is_file() and not p.name.startswith(".") and p.resolve() not in known_paths:
                 res.orphans.append(str(p.relative_to(paths.root)))
     return res
+
+
+def _inside(path: Path, root: Path) -> bool:
+    """Whether ``path`` lies inside the archive folder ``root`` (both taken as absolute, links resolved)."""
+    return Path(root).resolve() in Path(path).resolve().parents

@@ -61,7 +61,7 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
             if derived_dir.is_dir() else []
         for p in derived:
             put(p, f"derived/{p.name}")
-        put(ctx.rules.path, f"config/{ctx.rules.path.name}")
+        rules_note = _put_rule_set(ctx, latest, put)
         inputs = latest.get("qc_inputs") or qc_inputs(ctx, dep.id)
         (data / "config").mkdir(parents=True, exist_ok=True)
         excerpt = data / "config" / "register_excerpt.toml"
@@ -74,7 +74,7 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
                             encoding="utf-8")
         payload.append(("data/config/annotations.toml", ann_file))
         readme = data / "README.txt"
-        readme.write_text(_readme(station, dep, latest, raws, derived, ctx.rules, ann), encoding="utf-8")
+        readme.write_text(_readme(station, dep, latest, raws, derived, rules_note, ann), encoding="utf-8")
         payload.append(("data/README.txt", readme))
 
         manifest = "".join(f"{sha256_of_file(p)}  {rel}\n" for rel, p in sorted(payload))
@@ -103,7 +103,25 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
             shutil.rmtree(tmp)
 
 
-def _readme(station, dep, latest, raws, derived, rules, ann) -> str:
+def _put_rule_set(ctx, latest: dict, put) -> str:
+    """Enclose the rule set file that made the dataset: the archive's copy of it by content hash
+    (``config/rules/<sha256>.toml``, kept when the dataset was made), else the workspace's file if it still
+    has that hash.  An archive made before such copies were kept may have neither: then the current file is
+    enclosed under another name and the README says so.  Returns the README's line on it."""
+    name = Path(ctx.rules.path).name
+    snapshot = ctx.paths.config_snapshot("rules", latest["rules_sha256"])
+    if snapshot.is_file():
+        put(snapshot, f"config/{name}")
+        return f"config/{name}: the rule set file that made the dataset (SHA-256 {latest['rules_sha256']})"
+    if ctx.rules.sha256 == latest["rules_sha256"]:
+        put(ctx.rules.path, f"config/{name}")
+        return f"config/{name}: the rule set file that made the dataset (SHA-256 {latest['rules_sha256']})"
+    put(ctx.rules.path, f"config/current_{name}")
+    return (f"config/current_{name}: the CURRENT rule set (SHA-256 {ctx.rules.sha256}), not the one that made "
+            "the dataset: the archive kept no copy of that one (made before qcpipe kept configuration copies)")
+
+
+def _readme(station, dep, latest, raws, derived, rules_note, ann) -> str:
     lines = [
         f"Archive package of station {station.id} ({station.name}), deployment {dep.id}",
         "",
@@ -115,6 +133,7 @@ def _readme(station, dep, latest, raws, derived, rules, ann) -> str:
         f"raw/         {len(raws)} raw logger file(s) as downloaded (file names prefixed with their SHA-256)",
         f"derived/     {len(derived)} derived product(s): tide events, datums, exposure (NetCDF and CSV)",
         f"config/      the rule set file, the register entries used, {len(ann)} review annotation(s)",
+        f"             {rules_note}",
         "",
         "Tide values in these files are for data quality control only, not for navigation or safety planning.",
         "Manifests: manifest-sha256.txt (payload), tagmanifest-sha256.txt (tag files); BagIt 1.0 (RFC 8493).",

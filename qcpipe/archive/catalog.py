@@ -79,7 +79,46 @@ MIGRATIONS = [
         sha256 TEXT NOT NULL
     )
     """,
+    # 5: archive paths relative to the archive root (the folder holding the catalog), so a moved or restored
+    # archive works unchanged; rows outside the root stay absolute (see relative_paths)
+    lambda con, root: relative_paths(con, root),
 ]
+
+# the columns holding a path inside the archive: stored relative to the archive root, returned absolute
+PATH_COLUMNS = {"raw_files": "archived_path", "datasets": "path"}
+
+
+def stored_path(path, root: Path) -> str | None:
+    """``path`` as the catalog stores it: relative to the archive ``root`` (POSIX separators) when it lies
+    inside it, else absolute and unchanged (None stays None)."""
+    if path is None or str(path) == "":
+        return path
+    p = Path(path)
+    if not p.is_absolute():
+        return p.as_posix()
+    try:
+        return p.resolve().relative_to(root).as_posix()
+    except ValueError:
+        return str(path)
+
+
+def resolved_path(stored, root: Path) -> str | None:
+    """A stored path as an absolute one: a relative path is joined to the archive ``root`` the catalog was
+    opened from (so the archive may be moved or restored elsewhere); an absolute one is returned unchanged."""
+    if stored is None or stored == "":
+        return stored
+    p = Path(stored)
+    return str(p if p.is_absolute() else root / p)
+
+
+def relative_paths(con: sqlite3.Connection, root: Path) -> None:
+    """Migration 5: rewrite the archive paths of existing rows relative to ``root`` (rows outside it stay)."""
+    for table, column in PATH_COLUMNS.items():
+        key = "sha256" if table == "raw_files" else "id"
+        for k, value in con.execute(f"SELECT {key}, {column} FROM {table}").fetchall():
+            new = stored_path(value, root)
+            if new != value:
+                con.execute(f"UPDATE {table} SET {column} = ? WHERE {key} = ?", (new, k))
 
 
 _RUN_LOCKS: dict = {}      # (catalog path, run id) -> ArchiveLock held for the run
@@ -109,6 +148,7 @@ class Catalog:
     def __init__(self, path: str | Path):
         self.path = Path(path)
         self.path.parent.mkdir(parents=True, exist_ok=True)
+        self.root = self.path.parent.resolve()      # the archive root: relative paths are resolved against it
         with self._connect() as con:
             self._migrate(con)
 
@@ -149,8 +189,11 @@ class Catalog:
         for version, script in enumerate(MIGRATIONS[current:], start=current + 1):
             con.execute("BEGIN IMMEDIATE")
             try:
-                for stmt in filter(str.strip, script.split(";")):
-                    con.execute(stmt)
+                if callable(script):
+                    script(con, self.root)
+                else:
+                    for stmt in filter(str.strip, script.split(";")):
+                        con.execute(stmt)
                 con.execute(f"PRAGMA user_version = {version}")
                 con.execute("COMMIT")
             except BaseException:
@@ -182,6 +225,8 @@ class Catalog:
 
     def record_raw(self, con: sqlite3.Connection, **row) -> None:
         row.setdefault("first_seen", utc_now())
+        if "archived_path" in row:
+            row["archived_path"] = stored_path(row["archived_path"], self.root)
         cols = ", ".join(row)
         marks = ", ".join("?" for _ in row)
         con.execute(f"INSERT OR REPLACE INTO raw_files ({cols}) VALUES ({marks})", tuple(row.values()))
@@ -194,13 +239,15 @@ class Catalog:
         with self._connect() as con:
             r = con.execute("SELECT * FROM datasets WHERE deployment = ? ORDER BY version DESC LIMIT 1",
                             (deployment,)).fetchone()
-        return _row(r) if r else None
+        return self._row(r, "datasets") if r else None
 
     def record_dataset(self, con: sqlite3.Connection, **row) -> None:
         for key in ("flag_counts", "raw_sha256", "qc_inputs"):
             if key in row and not isinstance(row[key], str):
                 row[key] = json.dumps(row[key], sort_keys=True)
         row.setdefault("created", utc_now())
+        if "path" in row:
+            row["path"] = stored_path(row["path"], self.root)
         cols = ", ".join(row)
         con.execute(f"INSERT INTO datasets ({cols}) VALUES ({', '.join('?' for _ in row)})",
                     tuple(row.values()))
@@ -214,7 +261,7 @@ class Catalog:
 
     def mark_pruned(self, path: str) -> None:
         with self.transaction() as con:
-            con.execute("UPDATE datasets SET pruned = 1 WHERE path = ?", (path,))
+            con.execute("UPDATE datasets SET pruned = 1 WHERE path = ?", (stored_path(path, self.root),))
 
     def start_run(self, kind: str = "nightly") -> int:
         """Record a run's start, holding the archive's lock until :meth:`end_run` (one run at a time)."""
@@ -243,10 +290,21 @@ class Catalog:
         return self._select("runs", {}, "id")
 
     def _select(self, table: str, where: dict, order: str) -> list[dict]:
+        column = PATH_COLUMNS.get(table)
+        if column in where:
+            where = {**where, column: stored_path(where[column], self.root)}
         clause = " AND ".join(f"{k} = ?" for k in where)
         sql = f"SELECT * FROM {table}" + (f" WHERE {clause}" if clause else "") + f" ORDER BY {order}"
         with self._connect() as con:
-            return [_row(r) for r in con.execute(sql, tuple(where.values()))]
+            return [self._row(r, table) for r in con.execute(sql, tuple(where.values()))]
+
+    def _row(self, r: sqlite3.Row, table: str) -> dict:
+        """A row as a dict: JSON columns decoded, the archive path resolved against this archive's root."""
+        d = _row(r)
+        column = PATH_COLUMNS.get(table)
+        if column in d:
+            d[column] = resolved_path(d[column], self.root)
+        return d
 
 
 def _storage_error(err: sqlite3.OperationalError, path: Path) -> Exception:

@@ -10,6 +10,8 @@ Layout of an archive folder (all names are ours)::
     conflicts/<deployment>.csv                       records whose values disagree between downloads
     derived/<station>/...                            tide events, datums, fitted constants, exposure
     sites/<site>/fitted_constituents.toml (+ .json)  constants fitted to all the site's gauge records
+    config/<kind>/<sha256>.toml                      configuration files as used, by content hash (rules,
+                                                     register, layouts; tide_constants by the file's SHA-256)
     .prefect/                                        the orchestrator's own state
 """
 
@@ -79,6 +81,11 @@ class ArchivePaths:
     def site_product(self, site: str, name: str) -> Path:
         check_safe_id(site, "site id")
         return self._inside(self.root / "sites" / site / safe_file_name(name))
+
+    def config_snapshot(self, kind: str, sha256: str) -> Path:
+        """The archived copy of a configuration file of ``kind`` whose content hash is ``sha256``."""
+        check_safe_id(kind, "configuration kind")
+        return self._inside(self.root / "config" / kind / f"{_digest(sha256)}.toml")
 
     def conflicts(self, deployment: str) -> Path:
         check_safe_id(deployment, "deployment id")

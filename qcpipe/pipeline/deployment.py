@@ -16,7 +16,7 @@ from ..archive.ncio import read_attrs, read_dataset, write_dataset_atomic
 from ..checks import barometer_fallback_flags
 from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
 from ..derive import products as derived
-from ..files import copy_atomic, sha256_of_file
+from ..files import atomic_path, copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
 from ..apply_rules import apply_rule_set, flag_counts
 from ..report.words import (clock_correction_text, clock_verdict_text, companion_clock_text, elevation_text,
@@ -269,6 +269,7 @@ def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, n
            run_id: int | None) -> None:
     """Step 5: copy the run's new raw files into the archive and record them and the dataset in one transaction."""
     reg, cat, station, dep, store = ctx.register, ctx.catalog, p.station, p.dep, p.store
+    archive_configuration(ctx, station.site)
     with cat.transaction() as con:
         for f in new_files:
             dest = ctx.paths.raw_copy(station.id, dep.id, f.raw.sha256, f.raw.name)
@@ -284,6 +285,39 @@ def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, n
                            software_version=__version__, created=now, samples=int(store.time.size),
                            flag_counts=fc, raw_sha256=store.sources, qc_key=p.qc_key,
                            qc_inputs=p.qc_inputs, sha256=sha256_of_file(out_path), run_id=run_id)
+
+
+def archive_configuration(ctx: Context, site_id: str) -> list[Path]:
+    """Copy the configuration files a dataset is made with into the archive, by content hash
+    (``config/<kind>/<sha256>.toml``; kept once, never replaced): the rule set, register and layouts under
+    the hash the catalog records for them, the site's harmonic constants under the file's SHA-256 (as in
+    the dataset's QC inputs).  A file whose content no longer has the hash loaded for this run (edited
+    during the run) is not copied, so a copy is always exactly what its hash names.  Returns the copies."""
+    import tomllib
+
+    from ..config.loading import content_sha256
+
+    out = []
+    for kind, loaded in (("rules", ctx.rules), ("register", ctx.register), ("layouts", ctx.layouts)):
+        dest = ctx.paths.config_snapshot(kind, loaded.sha256)
+        if not dest.exists():
+            data = Path(loaded.path).read_bytes()
+            try:
+                same = content_sha256(tomllib.loads(data.decode("utf-8"))) == loaded.sha256
+            except (UnicodeDecodeError, tomllib.TOMLDecodeError):
+                same = False
+            if not same:
+                continue
+            with atomic_path(dest) as tmp:
+                tmp.write_bytes(data)
+        out.append(dest)
+    constants = ctx.register.constituents_path(site_id)
+    if constants is not None and constants.is_file():
+        dest = ctx.paths.config_snapshot("tide_constants", sha256_of_file(constants))
+        if not dest.exists():
+            copy_atomic(constants, dest)
+        out.append(dest)
+    return out
 
 
 def _run_counts(new_files, store_counts: dict) -> dict:

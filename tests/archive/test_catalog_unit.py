@@ -41,12 +41,75 @@ def cat(tmp_path):
 # --- schema -----------------------------------------------------------------------------------
 
 def test_new_catalog_has_every_migration_and_reopening_keeps_rows(cat):
-    # four migrations are listed in catalog.py (first schema, re-run columns, run_id, inbox hashes)
-    assert len(MIGRATIONS) == 4 and cat.schema_version == 4
+    # five migrations are listed in catalog.py (first schema, re-run columns, run_id, inbox hashes,
+    # archive paths relative to the archive root)
+    assert len(MIGRATIONS) == 5 and cat.schema_version == 5
     with cat.transaction() as con:
         cat.record_raw(con, **raw_row(SHA_A))
     again = Catalog(cat.path)                   # migrations must not run twice or drop anything
-    assert again.schema_version == 4 and again.known_hashes() == {SHA_A}
+    assert again.schema_version == 5 and again.known_hashes() == {SHA_A}
+
+
+# --- paths relative to the archive root -------------------------------------------------------
+
+def test_paths_stored_relative_and_resolved_against_where_the_catalog_is(tmp_path):
+    root = tmp_path / "a" / "archive"
+    cat = Catalog(root / "catalog.sqlite")
+    inside = root / "datasets" / "st1" / "dep1_v001.nc"
+    copy = root / "raw" / "st1" / "dep1" / "aaaaaaaaaaaa_f.csv"
+    with cat.transaction() as con:
+        cat.record_raw(con, **raw_row(SHA_A, archived_path=str(copy)))
+        cat.record_raw(con, **raw_row(SHA_B, "g.csv", archived_path=None, status="quarantined", reason="r"))
+        cat.record_dataset(con, **dataset_row(1, path=str(inside)))
+        cat.record_dataset(con, **dataset_row(2, path="/elsewhere/dep1_v002.nc"))
+    con = sqlite3.connect(cat.path)
+    assert sorted(r[0] for r in con.execute("SELECT path FROM datasets")) == \
+        ["/elsewhere/dep1_v002.nc", "datasets/st1/dep1_v001.nc"]
+    assert con.execute("SELECT archived_path FROM raw_files WHERE sha256 = ?", (SHA_A,)).fetchone()[0] == \
+        "raw/st1/dep1/aaaaaaaaaaaa_f.csv"
+    con.close()
+    cat.mark_pruned(str(inside))
+    assert [d["pruned"] for d in cat.dataset_versions("dep1")] == [1, 0]
+
+    # the archive moved: the same catalog file, opened from the new place, gives the new place's paths
+    moved = tmp_path / "b" / "restored"
+    moved.parent.mkdir()
+    os.rename(root, moved)
+    again = Catalog(moved / "catalog.sqlite")
+    v1, v2 = again.dataset_versions("dep1")
+    assert v1["path"] == str(moved.resolve() / "datasets" / "st1" / "dep1_v001.nc")
+    assert v2["path"] == "/elsewhere/dep1_v002.nc"                # outside the archive: kept as recorded
+    assert again.latest_dataset("dep1")["path"] == v2["path"]
+    assert [d["path"] for d in again.datasets()] == [v1["path"], v2["path"]]
+    assert {r["sha256"]: r["archived_path"] for r in again.raw_files()} == \
+        {SHA_A: str(moved.resolve() / "raw" / "st1" / "dep1" / "aaaaaaaaaaaa_f.csv"), SHA_B: None}
+
+
+def test_migration_5_makes_existing_paths_inside_the_archive_relative(tmp_path):
+    root = tmp_path / "archive"
+    root.mkdir()
+    con = sqlite3.connect(root / "catalog.sqlite", isolation_level=None)
+    for version, script in enumerate(MIGRATIONS[:4], start=1):       # a catalog written before migration 5
+        for stmt in filter(str.strip, script.split(";")):
+            con.execute(stmt)
+        con.execute(f"PRAGMA user_version = {version}")
+    inside, outside = root.resolve() / "datasets" / "st1" / "d_v001.nc", "/old/archive/datasets/st1/d_v002.nc"
+    for version, path in ((1, str(inside)), (2, outside)):
+        con.execute("INSERT INTO datasets (path, station, deployment, version, rules_name, rules_sha256, "
+                    "register_sha256, software_version, created, samples, flag_counts, raw_sha256) "
+                    "VALUES (?, 'st1', 'd', ?, 'r', '', '', '0', '', 1, '{}', '[]')", (path, version))
+    con.execute("INSERT INTO raw_files (sha256, size, original_name, original_path, archived_path, first_seen, "
+                "status) VALUES (?, 1, 'f', '/inbox/f', ?, '', 'archived')",
+                (SHA_A, str(root.resolve() / "raw" / "st1" / "d" / "f")))
+    con.close()
+    cat = Catalog(root / "catalog.sqlite")
+    assert cat.schema_version == 5
+    con = sqlite3.connect(cat.path)
+    assert [r[0] for r in con.execute("SELECT path FROM datasets ORDER BY version")] == \
+        ["datasets/st1/d_v001.nc", outside]
+    assert con.execute("SELECT archived_path FROM raw_files").fetchone()[0] == "raw/st1/d/f"
+    con.close()
+    assert [d["path"] for d in cat.dataset_versions("d")] == [str(inside), outside]
 
 
 # --- transactions ---------------------------------------------------------------------------
