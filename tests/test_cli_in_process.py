@@ -130,7 +130,7 @@ def test_holdings_counts_flags_per_variable_as_the_files_hold_them(demo):
     rows = catalog_rows(demo, "SELECT path, samples FROM datasets")
     assert len(shown) == len(rows) == 9                  # one dataset per deployment of the demo register
     for row in rows:
-        from_file = flag_counts_from_netcdf(row["path"])
+        from_file = flag_counts_from_netcdf(demo.archive / row["path"])   # catalog paths: relative to the archive
         name = row["path"].rsplit("/", 1)[-1]
         assert shown[name] == from_file, name
         for var, per in shown[name].items():              # each variable counts every sample once
@@ -159,7 +159,7 @@ def test_diff_of_a_deployment_with_one_version_says_so_and_what_it_holds(demo):
     r = qcpipe(demo, "diff", dep)
     assert r.returncode == 0, r.stderr
     row, = catalog_rows(demo, f"SELECT * FROM datasets WHERE deployment = '{dep}'")
-    with netCDF4.Dataset(row["path"]) as nc:
+    with netCDF4.Dataset(demo.archive / row["path"]) as nc:
         samples = len(nc.dimensions["time"])
     assert f"deployment '{dep}' has one dataset version, v001" in r.stdout
     assert f"{samples} samples" in r.stdout and row["path"].rsplit("/", 1)[-1] in r.stdout

@@ -41,7 +41,7 @@ def path_of(root, deployment, version):
     (p,) = con.execute("SELECT path FROM datasets WHERE deployment = ? AND version = ?",
                        (deployment, version)).fetchone()
     con.close()
-    return p
+    return root / "demo_archive" / p        # catalog paths are relative to the archive root
 
 
 def load(path):

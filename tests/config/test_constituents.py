@@ -69,7 +69,8 @@ _ONE = '[[tide.constituent]]\nname = "M2"\namplitude_m = 1.0\nphase_deg = 0.0\n'
      r"key tide.constituent\[2\] \(name 'M2'\): duplicate of tide.constituent\[0\]; keep one entry per "
      r"constituent$"),
     ('[[tide.constituent]]\nname = "M2"\namplitude = 1.0\nphase_deg = 0.0\n',
-     r"key tide.constituent\[0\] \(name 'M2'\).amplitude_m: Field required; add this key"),
+     r"key tide.constituent\[0\] \(name 'M2'\).amplitude: unknown key; this table takes name, amplitude_m, "
+     r"phase_deg, amplitude_se_m, phase_se_deg \(amplitude_m missing\); remove it or check its spelling$"),
     ('',
      r"key tide.constituent: Field required; add this key$"),
     ('resolved = ["M2", "XX1"]\n' + _ONE,

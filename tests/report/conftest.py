@@ -49,7 +49,8 @@ def run_dict_from_tables(archive: Path) -> dict:
         "files_seen": counts["files_seen"], "files_known": counts["files_known"], "ingested": counts["ingested"],
         "quarantined": [{"name": q["original_name"], "reason": q["reason"]} for q in quarantined],
         "repeated_in_inbox": [],
-        "results": [{"station": d["station"], "deployment": d["deployment"], "dataset": d["path"],
+        # the catalog stores dataset paths relative to the archive root
+        "results": [{"station": d["station"], "deployment": d["deployment"], "dataset": str(archive / d["path"]),
                      "version": d["version"], "samples": d["samples"], "flag_counts": json.loads(d["flag_counts"]),
                      "counts": {}, "notices": [], "products": []} for d in datasets],
         "notices": [],

@@ -36,7 +36,7 @@ def latest_flags(archive: Path) -> dict:
     con.close()
     out = {}
     for dep, version, path in rows:
-        with xr.open_dataset(path) as ds:
+        with xr.open_dataset(archive / path) as ds:     # catalog paths are relative to the archive root
             out[dep] = (version, {k: ds[k].values.copy() for k in ds.data_vars if "_qc" in k or k == "immersion"},
                         ds.sizes["time"])
     return out
