@@ -76,6 +76,17 @@ def fresh_copy(root: Path) -> Path:
     return root / "sample_raw" / "workspace.toml"
 
 
+def settled_copies(roots: list[Path]) -> list[Path]:
+    """Fresh copies of the demo, returned once their files are older than the inbox cache's settling
+    time (``qcpipe.ingest.discover.SETTLE_NS``): a run caches the inbox's hashes only then, so every run
+    of a settled copy passes the same crash points (one cache write more than on a fresh copy)."""
+    from qcpipe.ingest.discover import SETTLE_NS
+
+    copies = [fresh_copy(root) for root in roots]
+    time.sleep(SETTLE_NS / 1e9 + 0.5)
+    return copies
+
+
 def latest_flags(archive: Path) -> dict:
     con = sqlite3.connect(archive / "catalog.sqlite")
     rows = con.execute("SELECT deployment, MAX(version), path FROM datasets GROUP BY deployment").fetchall()
@@ -115,7 +126,7 @@ def reference(tmp_path_factory, forks):
     the catalog), which the orchestrator's tasks only call; the command runs some steps at the
     same time, so the order within a phase may differ, never the phases' order."""
     root = tmp_path_factory.mktemp("crash-ref")
-    ws = fresh_copy(root / "w")
+    (ws,) = settled_copies([root / "w"])
     points = root / "points.txt"
     server = forks.get()
     try:
@@ -201,7 +212,7 @@ def _opens_after_kill(archive: Path):
 def _kill_in_process_and_recover(k: int, tmp: Path, forks) -> tuple:
     """Kill the run sequence without the orchestrator at point ``k``, check what it left opens, run it
     again and audit (``qcpipe audit``), each in a forked child of a fork server."""
-    ws = fresh_copy(tmp / f"k{k}")
+    ws = tmp / f"k{k}" / "sample_raw" / "workspace.toml"            # settled by the caller
     archive = tmp / f"k{k}" / "demo_archive"
     server = forks.get()
     try:
@@ -240,6 +251,7 @@ def test_kill_at_many_points_then_recover(reference, tmp_path, forks):
     n = len(reference["names"])
     kill_at = sorted({int(x) for x in np.linspace(1, n, 21).round()})
     assert len(kill_at) >= 20
+    settled_copies([tmp_path / f"k{k}" for k in kill_at])
     with ThreadPoolExecutor(max_workers=2) as pool:
         results = list(pool.map(lambda k: _kill_in_process_and_recover(k, tmp_path, forks), kill_at))
     assert_recovered(results, reference["flags"])
@@ -257,10 +269,11 @@ def command_kills(reference, tmp_path_factory, forks):
     tmp = tmp_path_factory.mktemp("command-kills")
     points = phase_points(reference["names"])
     assert len(set(points.values())) == 4, points
+    settled_copies([tmp / f"k{k}" for k in points.values()])
 
     def one(phase: str) -> tuple:
         k = points[phase]
-        ws = fresh_copy(tmp / f"k{k}")
+        ws = tmp / f"k{k}" / "sample_raw" / "workspace.toml"
         archive = tmp / f"k{k}" / "demo_archive"
         if phase == "ingest":
             left = []
