@@ -29,7 +29,7 @@ demo: $(STAMP)
 ## make test: Debian packages the tests need (libudunits2-0, chromium), test extras, whole suite
 test: $(TESTSTAMP)
 	@bash tools/ensure-system-libs.sh
-	$(PY) -m pytest -q
+	$(PY) -m pytest -q --durations=15
 
 check-config: $(STAMP)
 	$(VENV)/bin/qcpipe check --workspace sample_raw/workspace.toml

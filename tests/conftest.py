@@ -2,7 +2,9 @@
 
 The run uses Prefect's embedded local mode exactly as ``make demo`` does (the
 ``qcpipe process`` command in a subprocess, a fresh Prefect home inside the
-temporary archive), twice: the second run must find nothing new.
+temporary archive), twice: the second run must find nothing new.  It is the suite's
+one real nightly run of the demo; other tests run the same sequence without the
+orchestrator (``run_sequence``).
 """
 
 from __future__ import annotations
@@ -74,6 +76,35 @@ def run_cli(*args, cwd=None, env=None):
     full_env.update(env or {})
     return subprocess.run([sys.executable, "-m", "qcpipe.cli", *args], cwd=cwd, env=full_env,
                           capture_output=True, text=True, timeout=600)
+
+
+def run_sequence(command: str, workspace, *, deployments: list[str] | None = None,
+                 quiet: bool = False) -> subprocess.CompletedProcess:
+    """``qcpipe process`` (``command`` "process") or ``qcpipe rerun`` without the orchestrator.
+
+    The same run sequence the commands' flows wrap (``qcpipe.pipeline.run.nightly_run`` / ``rerun``),
+    each step called at once in this process (``InProcess``), so no orchestrator start (15-20 s) is
+    paid.  Returns what the command gives: exit status 0 with the summary's lines on stdout (the
+    first one alone with ``quiet``; then the report's path), or 2 with the error's one line on
+    stderr for an expected failure (a QcpipeError)."""
+    from qcpipe.errors import QcpipeError
+    from qcpipe.pipeline import load_context
+    from qcpipe.pipeline.run import InProcess, nightly_run, rerun
+    from qcpipe.report.summary import summary_lines
+
+    args = [command, "--workspace", str(workspace), *(["-q"] if quiet else [])]
+    try:
+        ctx = load_context(workspace)
+        if command == "process":
+            summary = nightly_run(ctx, InProcess())
+        else:
+            summary = rerun(ctx, InProcess(), deployments or None)
+    except QcpipeError as err:
+        return subprocess.CompletedProcess(args, 2, "", f"qcpipe: error: {err}\n")
+    lines = summary_lines(summary)[:1] if quiet else summary_lines(summary)
+    if summary.report and not quiet:
+        lines.append(f"report: {summary.report}")
+    return subprocess.CompletedProcess(args, 0, "\n".join(lines) + "\n", "")
 
 
 @pytest.fixture(scope="session")

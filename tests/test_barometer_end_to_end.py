@@ -1,5 +1,6 @@
 """End to end: a small workspace with a barometer, an absolute level logger and a vented one, through
-ONE real ``qcpipe process`` run; the archived water levels are checked against levels computed here
+ONE nightly run (the sequence ``qcpipe process`` runs, without the orchestrator:
+``tests.conftest.run_sequence``); the archived water levels are checked against levels computed here
 directly from TEOS-10 (gsw) and the hand-written air pressure of the barometer."""
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ import pytest
 import xarray as xr
 
 from qcpipe import lineage, pipeline
-from tests.conftest import cf_check, run_cli
+from tests.conftest import cf_check, run_sequence
 
 LAT, LON = 50.1, -4.2
 SALINITY = 33.0
@@ -121,7 +122,7 @@ def run(tmp_path_factory):
     for serial, kpa in (("A-1", absolute_kpa), ("V-1", vented_kpa)):
         (root / "inbox" / f"{serial}_level.txt").write_text(
             "when,kpa,degc\n" + "".join(f"{_stamp(t)},{p:.4f},{TEMP_C:.2f}\n" for t, p in zip(LEVEL_T, kpa)))
-    result = run_cli("process", "--workspace", str(root / "workspace.toml"), cwd=root)
+    result = run_sequence("process", root / "workspace.toml")
     assert result.returncode == 0, result.stderr + result.stdout
     return root, result
 

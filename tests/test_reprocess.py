@@ -1,5 +1,9 @@
-"""Re-running QC when thresholds, register or annotations change (through the real flows),
-flag diffs checked against counts computed here, catalog accounting, fixity, BagIt packages."""
+"""Re-running QC when thresholds, register or annotations change, flag diffs checked against
+counts computed here, catalog accounting, fixity, BagIt packages.
+
+The runs are the run sequence without the orchestrator (``run_sequence``: what ``qcpipe
+process``/``rerun`` run, without Prefect's start), except one ``qcpipe rerun`` through the real
+command and flow (``test_rerun_command_reprocesses_dependents``)."""
 
 from __future__ import annotations
 
@@ -11,7 +15,7 @@ import pytest
 import xarray as xr
 
 from qcpipe.diff import flag_diff_files
-from tests.conftest import REPO, run_cli
+from tests.conftest import REPO, run_cli, run_sequence
 
 
 @pytest.fixture(scope="module")
@@ -20,7 +24,7 @@ def work(tmp_path_factory):
     shutil.copytree(REPO / "sample_raw", root / "sample_raw")
     shutil.copytree(REPO / "qc_rules", root / "qc_rules")
     ws = root / "sample_raw" / "workspace.toml"
-    r = run_cli("process", "--workspace", str(ws), "-q")
+    r = run_sequence("process", ws, quiet=True)
     assert r.returncode == 0, r.stderr
     return root
 
@@ -68,7 +72,7 @@ def test_threshold_change_reprocesses_exactly_one_dataset(work):
     before = versions(work)
     rules = work / "qc_rules" / "kelpwhistle-cove.toml"
     rules.write_text(rules.read_text() + '\n[station.kc-high.variable.temperature]\nspike = { suspect = 3.0 }\n')
-    r = run_cli("process", "--workspace", ws(work))
+    r = run_sequence("process", ws(work))
     assert r.returncode == 0, r.stderr
     assert "re-QC kc-high-temp-2026-09: rules.temperature.spike.suspect: 4.0 -> 3.0" in r.stdout
     after = versions(work)
@@ -108,7 +112,7 @@ def test_threshold_change_reprocesses_exactly_one_dataset(work):
     assert new.attrs["history"].startswith(old.attrs["history"])
     assert new.attrs["date_created"] == old.attrs["date_created"]
     # nothing left to do
-    r = run_cli("process", "--workspace", ws(work), "-q")
+    r = run_sequence("process", ws(work), quiet=True)
     assert "nothing new" in r.stdout
 
 
@@ -131,7 +135,7 @@ date = 2026-10-05
     if "\nannotations = " not in wsf.read_text():               # the demo's workspace names one already
         wsf.write_text(wsf.read_text().replace('archive = "../demo_archive"',
                                                'archive = "../demo_archive"\nannotations = "annotations.toml"'))
-    r = run_cli("process", "--workspace", ws(work))
+    r = run_sequence("process", ws(work))
     assert r.returncode == 0, r.stderr
     assert versions(work)["kc-high-temp-2026-09"] == base_v + 1
     annotated = load(path_of(work, "kc-high-temp-2026-09", base_v + 1))
@@ -145,7 +149,7 @@ date = 2026-10-05
     assert "dislodged" in annotated["temperature_qc_manual"].attrs["comment"]
     # removing the annotation restores the automated flags
     ann.write_text("# no annotations\n")
-    r = run_cli("process", "--workspace", ws(work), "-q")
+    r = run_sequence("process", ws(work), quiet=True)
     assert r.returncode == 0, r.stderr
     restored = load(path_of(work, "kc-high-temp-2026-09", base_v + 2))
     np.testing.assert_array_equal(restored["temperature_qc"].values, base["temperature_qc"].values)
@@ -159,7 +163,7 @@ def test_register_clock_correction_rereads_only_that_deployment(work):
     old = "clock_check = { logger_time = 2026-10-26T09:43:00, reference_time = 2026-10-26T08:37:00Z }"
     assert old in text                  # the drifting kc-mid temperature logger (6 min fast)
     reg.write_text(text.replace(old, old.replace("09:43:00", "09:41:00")))   # a corrected reading: 4 min
-    r = run_cli("process", "--workspace", ws(work))
+    r = run_sequence("process", ws(work))
     assert r.returncode == 0, r.stderr
     assert "raw files read again" in r.stdout
     after = versions(work)
@@ -173,6 +177,8 @@ def test_register_clock_correction_rereads_only_that_deployment(work):
 
 
 def test_rerun_command_reprocesses_dependents(work):
+    """The suite's re-run through the real command and flow (an orchestrator start, 15-20 s): the
+    re-run flow's tasks in their dependency order; the later re-runs without the orchestrator."""
     before = versions(work)
     r = run_cli("rerun", "--workspace", ws(work), "--deployment", "kc-pier-level-2026-09")
     assert r.returncode == 0, r.stderr
@@ -181,14 +187,14 @@ def test_rerun_command_reprocesses_dependents(work):
     # a new gauge record changes the reference level of every probe, and so every station; the
     # site's barometer is upstream of the gauge (the gauge subtracts its air pressure), not a dependent
     assert changed == set(after) - {"kc-deck-baro-2026-09"}
-    r = run_cli("rerun", "--workspace", ws(work), "--deployment", "kc-deck-baro-2026-09", "-q")
+    r = run_sequence("rerun", ws(work), deployments=["kc-deck-baro-2026-09"], quiet=True)
     assert r.returncode == 0, r.stderr
     again = versions(work)
     # a new barometer record changes the gauge's air pressure, and so everything the gauge feeds
     assert {d for d in again if again[d] != after[d]} == set(after)
-    r = run_cli("rerun", "--workspace", ws(work), "-q")
+    r = run_sequence("rerun", ws(work), quiet=True)
     assert r.stdout.startswith("nothing changed")
-    r = run_cli("rerun", "--workspace", ws(work), "--deployment", "no-such")
+    r = run_sequence("rerun", ws(work), deployments=["no-such"])
     assert r.returncode == 2 and "no deployment 'no-such'" in r.stderr
 
 

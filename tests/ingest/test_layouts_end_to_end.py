@@ -1,4 +1,7 @@
-"""Several invented logger layouts through ONE real ``qcpipe process`` run, checked in the archive.
+"""Several invented logger layouts through ONE nightly run, checked in the archive.
+
+The run is the sequence ``qcpipe process`` runs, without the orchestrator
+(``tests.conftest.run_sequence``): what is checked here is reading and archiving.
 
 A small workspace (register, layouts, rule set, inbox) is written here: five
 temperature loggers at one station, each exporting in a different style.  The
@@ -10,14 +13,13 @@ from __future__ import annotations
 
 import datetime as dt
 import json
-import os
-import subprocess
-import sys
 from zoneinfo import ZoneInfo
 
 import numpy as np
 import pytest
 import xarray as xr
+
+from tests.conftest import run_sequence
 
 UTC_TZ = dt.timezone.utc
 START = dt.datetime(2026, 10, 24, 18, 0, tzinfo=UTC_TZ)
@@ -186,8 +188,7 @@ def layout_run(tmp_path_factory):
     (root / "inbox").mkdir()
     for name, data in files().items():
         (root / "inbox" / name).write_bytes(data)
-    done = subprocess.run([sys.executable, "-m", "qcpipe.cli", "process", "--workspace", str(root / "workspace.toml")],
-                          cwd=root, env=dict(os.environ), capture_output=True, text=True, timeout=600)
+    done = run_sequence("process", root / "workspace.toml")
     return root, done
 
 

@@ -1,4 +1,6 @@
-"""One demo archive for the report tests: ``qcpipe process`` once over a copy of the demo inbox.
+"""One demo archive for the report tests: the nightly run once over a copy of the demo inbox,
+without the orchestrator (``tests.conftest.run_sequence``; the real command's run of the demo is
+``tests.conftest.demo_run``).
 
 The ``run`` dict is built here from the catalog tables with plain SQL, not by
 the code under test, so the report is checked against what the pipeline
@@ -8,15 +10,14 @@ recorded.
 from __future__ import annotations
 
 import json
-import os
 import shutil
 import sqlite3
-import subprocess
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+
+from tests.conftest import run_sequence
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -63,8 +64,7 @@ def report_case(tmp_path_factory) -> ReportCase:
     shutil.copytree(REPO / "sample_raw", root / "sample_raw")
     shutil.copytree(REPO / "qc_rules", root / "qc_rules")
     ws = root / "sample_raw" / "workspace.toml"
-    done = subprocess.run([sys.executable, "-m", "qcpipe.cli", "process", "-w", str(ws)], cwd=root,
-                          env=dict(os.environ), capture_output=True, text=True, timeout=600)
+    done = run_sequence("process", ws)
     assert done.returncode == 0, done.stderr
     archive = root / "demo_archive"
     run = run_dict_from_tables(archive)

@@ -1,10 +1,18 @@
-"""Nothing lost, nothing half-written: SIGKILL at many points of a real nightly run, a full
-disk, two runs at once.  Each killed run is followed by a normal one, which must finish the
-work exactly as an uninterrupted run does (catalog accounting and fixity included)."""
+"""Nothing lost, nothing half-written: SIGKILL at many points of a nightly run, a full disk,
+two runs at once.  Each killed run is followed by a normal one, which must finish the work
+exactly as an uninterrupted run does (catalog accounting and fixity included).
+
+Most kill points kill the run sequence without the orchestrator (``nightly_in_process.py``
+beside this file: ``nightly_run`` with ``InProcess`` in a forked child of a process that
+imported qcpipe once), which writes the archive through the same code as the command and
+costs no orchestrator start; one point in each phase of the run (ingest, stores, QC, report)
+kills the real ``qcpipe process``, and the real command runs again after one of them."""
 
 from __future__ import annotations
 
+import json
 import os
+import queue
 import shutil
 import signal
 import sqlite3
@@ -20,7 +28,45 @@ import pytest
 
 import xarray as xr
 
-from tests.conftest import REPO, run_cli
+from tests.conftest import REPO, run_cli, run_sequence
+
+#: the run sequence without the orchestrator, as a command (see its docstring)
+IN_PROCESS = Path(__file__).with_name("nightly_in_process.py")
+
+
+class Forks:
+    """``nightly_in_process.py --serve``: commands run in forked children of one process that
+    imported qcpipe once (see that file's docstring)."""
+
+    def __init__(self):
+        self.proc = subprocess.Popen([sys.executable, str(IN_PROCESS), "--serve"], stdin=subprocess.PIPE,
+                                     stdout=subprocess.PIPE, text=True)
+
+    def run(self, argv: list[str], log: Path, env: dict | None = None) -> subprocess.CompletedProcess:
+        """``argv``: ``["nightly", workspace]`` or the ``qcpipe`` command's arguments; stdout and
+        stderr together in ``log``, returned as both."""
+        self.proc.stdin.write(json.dumps({"argv": argv, "env": env or {}, "log": str(log)}) + "\n")
+        self.proc.stdin.flush()
+        answer = self.proc.stdout.readline()
+        assert answer, f"the fork server ended ({argv})"
+        out = log.read_text()
+        return subprocess.CompletedProcess(argv, json.loads(answer)["returncode"], out, out)
+
+    def close(self) -> None:
+        self.proc.stdin.close()
+        self.proc.wait(timeout=60)
+
+
+@pytest.fixture(scope="module")
+def forks():
+    """Two fork servers (one for each of the two threads the kill tests use), in a queue."""
+    servers = [Forks(), Forks()]
+    pool = queue.Queue()
+    for s in servers:
+        pool.put(s)
+    yield pool
+    for s in servers:
+        s.close()
 
 
 def fresh_copy(root: Path) -> Path:
@@ -28,6 +74,17 @@ def fresh_copy(root: Path) -> Path:
     shutil.copytree(REPO / "sample_raw", root / "sample_raw")
     shutil.copytree(REPO / "qc_rules", root / "qc_rules")
     return root / "sample_raw" / "workspace.toml"
+
+
+def settled_copies(roots: list[Path]) -> list[Path]:
+    """Fresh copies of the demo, returned once their files are older than the inbox cache's settling
+    time (``qcpipe.ingest.discover.SETTLE_NS``): a run caches the inbox's hashes only then, so every run
+    of a settled copy passes the same crash points (one cache write more than on a fresh copy)."""
+    from qcpipe.ingest.discover import SETTLE_NS
+
+    copies = [fresh_copy(root) for root in roots]
+    time.sleep(SETTLE_NS / 1e9 + 0.5)
+    return copies
 
 
 def latest_flags(archive: Path) -> dict:
@@ -62,12 +119,20 @@ def _assert_archive_opens(archive: Path):
 
 
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory):
-    """One uninterrupted run, with every crash point it passes counted."""
+def reference(tmp_path_factory, forks):
+    """One uninterrupted run of the run sequence, with every crash point it passes counted.
+
+    The command passes the same points: they are in the archive's own writes (``qcpipe.files``,
+    the catalog), which the orchestrator's tasks only call; the command runs some steps at the
+    same time, so the order within a phase may differ, never the phases' order."""
     root = tmp_path_factory.mktemp("crash-ref")
-    ws = fresh_copy(root / "w")
+    (ws,) = settled_copies([root / "w"])
     points = root / "points.txt"
-    r = run_cli("process", "-w", str(ws), "-q", env={"QCPIPE_TEST_COUNT_POINTS": str(points)})
+    server = forks.get()
+    try:
+        r = server.run(["nightly", str(ws)], root / "run.log", env={"QCPIPE_TEST_COUNT_POINTS": str(points)})
+    finally:
+        forks.put(server)
     assert r.returncode == 0, r.stderr
     names = [ln.split(" ", 1)[1] for ln in points.read_text().splitlines()]
     return {"archive": root / "w" / "demo_archive", "names": names, "flags": latest_flags(root / "w" / "demo_archive")}
@@ -79,8 +144,22 @@ def test_enough_crash_points_across_the_run(reference):
     kinds = {n.split(" ", 1)[0] for n in names}
     assert kinds == {"before-rename", "before-commit"}
     written = " ".join(names)
-    for part in (".wet", "_temp.csv", ".nc", "catalog"):   # raw copies, stores/datasets, catalog updates
+    for part in (".wet", "_temp.csv", ".nc", "catalog", ".html"):   # raw copies, stores/datasets, catalog, report
         assert part in written
+
+
+def phase_points(names: list[str]) -> dict[str, int]:
+    """The crash point (1-based) in the middle of each phase of the run, found by the names of the points:
+    ingest (the run's start, quarantine) up to the first store written (``<deployment>.nc``), stores up to
+    the first dataset (``qcpipe_...``), QC (datasets, products, raw copies, catalog) up to the first report
+    page (``.html``), the report."""
+    first_store = next(i for i, n in enumerate(names) if n.endswith(".nc"))
+    first_dataset = next(i for i, n in enumerate(names) if n.startswith("before-rename qcpipe_"))
+    first_page = next(i for i, n in enumerate(names) if n.endswith(".html"))
+    assert 0 < first_store < first_dataset < first_page < len(names), names
+    bounds = {"ingest": (0, first_store), "stores": (first_store, first_dataset),
+              "qc": (first_dataset, first_page), "report": (first_page, len(names))}
+    return {phase: (lo + hi) // 2 + 1 for phase, (lo, hi) in bounds.items()}
 
 
 def run_until_killed(ws: Path, k: int, pgids: list | None = None) -> int:
@@ -114,27 +193,40 @@ def _kill_group(pgid: int) -> None:
         pass
 
 
-def _kill_and_recover(args):
-    k, tmp = args
-    ws = fresh_copy(tmp / f"k{k}")
-    killed = subprocess.CompletedProcess([], run_until_killed(ws, k))
-    archive = tmp / f"k{k}" / "demo_archive"
-    opened_ok = None
+def _group_alive(pgid: int) -> bool:
+    try:
+        os.killpg(pgid, 0)
+    except ProcessLookupError:
+        return False
+    return True
+
+
+def _opens_after_kill(archive: Path):
+    """What the killed run left opens (True), or it left no catalog yet (None)."""
     if archive.exists() and (archive / "catalog.sqlite").exists():
         assert_archive_opens(archive)
-        opened_ok = True
-    again = run_cli("process", "-w", str(ws), "-q")
-    audit = run_cli("audit", "-w", str(ws))
+        return True
+    return None
+
+
+def _kill_in_process_and_recover(k: int, tmp: Path, forks) -> tuple:
+    """Kill the run sequence without the orchestrator at point ``k``, check what it left opens, run it
+    again and audit (``qcpipe audit``), each in a forked child of a fork server."""
+    ws = tmp / f"k{k}" / "sample_raw" / "workspace.toml"            # settled by the caller
+    archive = tmp / f"k{k}" / "demo_archive"
+    server = forks.get()
+    try:
+        killed = server.run(["nightly", str(ws)], tmp / f"k{k}" / "killed.log", env={"QCPIPE_TEST_KILL_AT": str(k)})
+        opened_ok = _opens_after_kill(archive)
+        again = server.run(["nightly", str(ws)], tmp / f"k{k}" / "again.log")
+        audit = server.run(["audit", "-w", str(ws)], tmp / f"k{k}" / "audit.log")
+    finally:
+        forks.put(server)
     return k, killed.returncode, opened_ok, again, audit, archive
 
 
-def test_kill_at_many_points_then_recover(reference, tmp_path):
-    n = len(reference["names"])
-    kill_at = sorted({int(x) for x in np.linspace(1, n, 21).round()})
-    assert len(kill_at) >= 20
-    with ThreadPoolExecutor(max_workers=2) as pool:
-        results = list(pool.map(_kill_and_recover, [(k, tmp_path) for k in kill_at]))
-    ref = reference["flags"]
+def assert_recovered(results, ref):
+    """Every killed run was killed, and the run after it left the archive as an uninterrupted run does."""
     for k, rc, opened_ok, again, audit, archive in results:
         assert rc == -signal.SIGKILL, f"point {k}: the run was not killed (rc {rc})"
         assert again.returncode == 0, f"point {k}: recovery run failed: {again.stderr}"
@@ -151,6 +243,76 @@ def test_kill_at_many_points_then_recover(reference, tmp_path):
                 np.testing.assert_array_equal(gflags[name], arr, err_msg=f"point {k}: {dep} {name}")
         leftovers = [p for p in archive.rglob("*.tmp") if ".prefect" not in p.parts]
         assert leftovers == [], f"point {k}: {leftovers}"
+
+
+def test_kill_at_many_points_then_recover(reference, tmp_path, forks):
+    """21 points spread over the whole run, killed and recovered without the orchestrator (the archive's
+    writes are the same code; the command's own kills are ``command_kills``)."""
+    n = len(reference["names"])
+    kill_at = sorted({int(x) for x in np.linspace(1, n, 21).round()})
+    assert len(kill_at) >= 20
+    settled_copies([tmp_path / f"k{k}" for k in kill_at])
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        results = list(pool.map(lambda k: _kill_in_process_and_recover(k, tmp_path, forks), kill_at))
+    assert_recovered(results, reference["flags"])
+
+
+@pytest.fixture(scope="module")
+def command_kills(reference, tmp_path_factory, forks):
+    """The real ``qcpipe process`` killed about the middle of each phase of the run.
+
+    In the ingest phase only the command's own process dies: what it started (the orchestrator's
+    embedded server) lives on while the real command runs again, as in a lost terminal; at the other
+    points whatever it started dies too, as in a power cut, and the run after it is the sequence without
+    the orchestrator.  A long fixture (five orchestrator starts, two runs at a time) because only the
+    command shows that a killed flow run, and its server, leave nothing the next command trips on."""
+    tmp = tmp_path_factory.mktemp("command-kills")
+    points = phase_points(reference["names"])
+    assert len(set(points.values())) == 4, points
+    settled_copies([tmp / f"k{k}" for k in points.values()])
+
+    def one(phase: str) -> tuple:
+        k = points[phase]
+        ws = tmp / f"k{k}" / "sample_raw" / "workspace.toml"
+        archive = tmp / f"k{k}" / "demo_archive"
+        if phase == "ingest":
+            left = []
+            try:
+                rc = run_until_killed(ws, k, pgids=left)
+                opened_ok = _opens_after_kill(archive)
+                children_alive = _group_alive(left[0])
+                again = run_cli("process", "-w", str(ws), "-q")
+            finally:
+                for pgid in left:
+                    _kill_group(pgid)
+            audit = run_cli("audit", "-w", str(ws))
+            return phase, children_alive, (k, rc, opened_ok, again, audit, archive)
+        rc = run_until_killed(ws, k)
+        opened_ok = _opens_after_kill(archive)
+        server = forks.get()
+        try:
+            again = server.run(["nightly", str(ws)], tmp / f"k{k}" / "again.log")
+            audit = server.run(["audit", "-w", str(ws)], tmp / f"k{k}" / "audit.log")
+        finally:
+            forks.put(server)
+        return phase, None, (k, rc, opened_ok, again, audit, archive)
+
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        done = list(pool.map(one, ["ingest", "stores", "qc", "report"]))
+    return {phase: (alive, result) for phase, alive, result in done}
+
+
+def test_kill_the_command_once_per_phase_then_recover(reference, command_kills):
+    assert_recovered([result for _, result in command_kills.values()], reference["flags"])
+
+
+def test_lock_released_when_the_holder_is_killed(command_kills):
+    """The command killed in the ingest phase held the archive's lock; what it started was still
+    running when the real command ran again, and that run took the lock and finished."""
+    children_alive, (k, rc, _, again, _, _) = command_kills["ingest"]
+    assert rc == -signal.SIGKILL, f"point {k}: the run was not killed (rc {rc})"
+    assert children_alive, "the killed command had left nothing running: not the case this test is about"
+    assert again.returncode == 0, again.stderr
 
 
 def test_two_runs_at_once_do_not_interleave(tmp_path):
@@ -173,18 +335,6 @@ def test_two_runs_at_once_do_not_interleave(tmp_path):
     assert third.returncode == 0 and "nothing new" in third.stdout
 
 
-def test_lock_released_when_the_holder_is_killed(tmp_path):
-    ws = fresh_copy(tmp_path / "w")
-    left = []           # only the run's own process dies: what it started may live on
-    try:
-        assert run_until_killed(ws, 5, pgids=left) == -signal.SIGKILL
-        again = run_cli("process", "-w", str(ws), "-q")
-        assert again.returncode == 0, again.stderr
-    finally:
-        for pgid in left:
-            _kill_group(pgid)
-
-
 @pytest.fixture()
 def small_disk(tmp_path):
     mnt = tmp_path / "disk"
@@ -199,11 +349,13 @@ def small_disk(tmp_path):
 
 
 def test_disk_full_fails_clearly_and_keeps_earlier_versions(tmp_path, small_disk):
+    """The failing run is the real command (the error crosses the orchestrator to the command's one
+    line); the runs before and after it, the sequence without the orchestrator."""
     ws = fresh_copy(tmp_path / "w")
     text = ws.read_text().replace('archive = "../demo_archive"', f'archive = "{small_disk / "archive"}"')
     ws.write_text(text)
     env = {"PREFECT_HOME": str(tmp_path / "prefect-home")}      # the orchestrator's own state elsewhere
-    r = run_cli("process", "-w", str(ws), "-q", env=env)
+    r = run_sequence("process", ws, quiet=True)               # the first versions (no orchestrator needed)
     assert r.returncode == 0, r.stderr
     archive = small_disk / "archive"
     before = {p: p.read_bytes() for p in (archive / "datasets").rglob("*.nc")}
@@ -223,6 +375,6 @@ def test_disk_full_fails_clearly_and_keeps_earlier_versions(tmp_path, small_disk
     assert [p for p in archive.rglob("*.tmp")] == []          # nothing half-written left
     assert_archive_opens(archive)
     filler.unlink()
-    r = run_cli("process", "-w", str(ws), "-q", env=env)
+    r = run_sequence("process", ws, quiet=True)
     assert r.returncode == 0, r.stderr
     assert run_cli("audit", "-w", str(ws)).returncode == 0

@@ -1,7 +1,9 @@
 """Transient I/O errors are tried again (a bounded number of times); permanent ones are not.
 
 The errors are injected at the archive's real write points (``QCPIPE_TEST_IO_ERROR``,
-see ``qcpipe/faults.py``) of a real nightly run with Prefect's local runner."""
+see ``qcpipe/faults.py``) of a real nightly run with Prefect's local runner: the retries are the
+orchestrator's, so these runs are the real command (an orchestrator start each); the run after a
+failed one, which only has to finish the work, is the sequence without the orchestrator."""
 
 from __future__ import annotations
 
@@ -12,7 +14,7 @@ import pytest
 
 from flows.tasks import RETRIES, transient_only
 from qcpipe.errors import ArchiveError, ConfigError, ParseError, is_transient
-from tests.conftest import run_cli
+from tests.conftest import run_cli, run_sequence
 from tests.robustness.test_crash import assert_archive_opens, fresh_copy
 
 
@@ -87,7 +89,7 @@ def test_retries_are_bounded(tmp_path):
     assert "still failing after the tasks' retries" in r.stderr and "Traceback" not in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
     assert_archive_opens(tmp_path / "w" / "demo_archive")
-    again = run_cli("process", "-w", str(ws), "-q")          # the fault has passed: the next run finishes
+    again = run_sequence("process", ws, quiet=True)          # the fault has passed: the next run finishes
     assert again.returncode == 0, again.stderr
     assert run_cli("audit", "-w", str(ws)).returncode == 0
 
