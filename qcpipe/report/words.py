@@ -120,8 +120,10 @@ def companion_clock_text(probe: str, companions: list[tuple[str, dict]]) -> str:
                      f"{'shares the error' if shares else 'does not share the error'})")
     if not parts:
         return f"no other logger at the station of {probe}"
-    return ("these loggers at the station may share the error: " + "; ".join(parts) +
-            f"; to correct all that share it: qcpipe apply-clock {probe} --station --by NAME")
+    sharing = any(a and int(a.get("clock_companion_shares_probe_error", 0) or 0) == 1 for _, a in companions)
+    how = (f"to correct all that share it: qcpipe apply-clock {probe} --station --by NAME" if sharing else
+           f"to correct the probe alone: qcpipe apply-clock {probe} --by NAME")
+    return "these loggers at the station may share the error: " + "; ".join(parts) + "; " + how
 
 
 def clock_plan_lines(plan) -> list[str]:
