@@ -677,6 +677,25 @@ def _fmt_s(seconds: float) -> str:
     return f"{seconds * 1e3:.1f} ms" if seconds < 1 else f"{seconds:.2f} s"
 
 
+#: why a case misses its target, measured and written up in benchmarks/README.md, printed beside a MISS
+MISS_REASONS = {
+    "spike": "the window-edge search alone costs 14-27 copies in numpy; a compiled loop (numba) reaches about 10 "
+             "but costs 0.5-0.9 s import, 3.6 s first compile and 208 MB (README: 'Why the spike and "
+             "rate-of-change tests stay above 20x a copy')",
+    "rate_of_change": "as spike: the window-edge search alone costs 14-27 copies in numpy (same README section)",
+    "suite": "spike, rate of change and the delayed flat line carry the window-edge cost above; the plain pandas "
+             "script uses pandas' compiled window bounds (README: 'Why the windowed checks are above 20x a copy')",
+}
+
+
+def miss_reason(case: str) -> str | None:
+    """The recorded reason a case misses its target, by the check or suite it measures."""
+    for key, why in MISS_REASONS.items():
+        if case.startswith(key):
+            return why
+    return None
+
+
 def _row(case, measured, target, ok, rss, **extra):
     return dict(case=case, measured=measured, target=target, verdict="PASS" if ok else "MISS",
                 peak_rss_mb=round(rss, 1), **extra)
@@ -796,6 +815,9 @@ def print_table(rows, agree, pandas_samples, total, cpu_shares) -> None:
         print("  ".join(v.ljust(w) if i < 4 else v.rjust(w) for i, (v, w) in enumerate(zip(c, widths))))
     print(line)
     misses = sum(r["verdict"] == "MISS" for r in rows)
+    for r in rows:
+        if r["verdict"] == "MISS" and miss_reason(r["case"]):
+            print(f"why '{r['case']}' misses: {miss_reason(r['case'])}")
     starved = {name: share for name, share in cpu_shares.items() if share < 0.8}
     print(f"{len(rows) - misses} PASS, {misses} MISS; best of {REPEATS} repetitions per timing; "
           f"each case in a fresh process (peak RSS of that process)")
