@@ -16,8 +16,6 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
-import re
-import tomllib
 from pathlib import Path
 
 import tomlkit
@@ -25,7 +23,7 @@ import tomlkit
 from ..errors import ConfigError
 from ..files import write_text_atomic
 from .annotations import Annotation, AnnotationFile, Annotations
-from .loading import validate
+from .loading import dumps_like, edited_toml_data, validate
 
 HEADING = ("# Review annotations: a reviewer's flags over time ranges (format: qcpipe/config/annotations.py).\n"
            "# Written by hand or by 'qcpipe inspect'; comments and layout are kept.\n")
@@ -92,19 +90,12 @@ def edited_text(text: str, path: Path, *, add: Annotation | None = None, replace
                 del doc["annotation"]           # not "annotation = []": the file is as if never written to
     elif add is not None:
         aot.append(_entry(add))
-    out = tomlkit.dumps(doc)
-    if "\r\n" in text:
-        out = re.sub(r"(?<!\r)\n", "\r\n", out)
-    return out
+    return dumps_like(doc, text)
 
 
 def validated_annotations_text(text: str, path: Path) -> Annotations:
     """The annotations ``text`` (meant for ``path``) validated as :func:`load_annotations` does; ConfigError if not."""
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{path}: the edited annotations are not valid TOML ({err}); the file was left "
-                          "unchanged") from None
+    data = edited_toml_data(text, path, "the edited annotations are")
     return Annotations(validate(AnnotationFile, data, path).annotation, path)
 
 

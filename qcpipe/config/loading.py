@@ -171,3 +171,20 @@ def content_sha256(data: Any) -> str:
     """
     text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def dumps_like(doc, original: str) -> str:
+    """A tomlkit document as text, its new lines ending as the ``original`` file's did (CRLF kept)."""
+    import tomlkit
+
+    out = tomlkit.dumps(doc)
+    return re.sub(r"(?<!\r)\n", "\r\n", out) if "\r\n" in original else out
+
+
+def edited_toml_data(text: str, path, what: str) -> dict:
+    """An edited file's ``text`` parsed for validation before it replaces ``path``; ConfigError (one line,
+    saying the file was left unchanged) when the edit is not valid TOML. ``what``: "the edited register is"."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"{path}: {what} not valid TOML ({err}); the file was left unchanged") from None

@@ -9,15 +9,13 @@ either the old one or a valid new one, never anything else.
 from __future__ import annotations
 
 import datetime as dt
-import re
-import tomllib
 from pathlib import Path
 
 import tomlkit
 
 from ..errors import ConfigError
 from ..files import write_text_atomic
-from .loading import content_sha256, validate
+from .loading import content_sha256, dumps_like, edited_toml_data, validate
 from .register import LoadedRegister, Register
 
 
@@ -64,19 +62,12 @@ def with_clock_corrections(text: str, corrections: dict[str, dict], *, path: Pat
         inline = tomlkit.inline_table()
         inline.update(entry)
         _set_last(table, "clock_correction", inline)
-    out = tomlkit.dumps(doc)
-    if "\r\n" in text:                  # new lines end as the file's do
-        out = re.sub(r"(?<!\r)\n", "\r\n", out)
-    return out
+    return dumps_like(doc, text)
 
 
 def validated_register_text(text: str, path: Path) -> LoadedRegister:
     """The register ``text`` (meant for ``path``) validated as :func:`load_register` does; ConfigError if not."""
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{path}: the edited register is not valid TOML ({err}); the file was left "
-                          "unchanged") from None
+    data = edited_toml_data(text, path, "the edited register is")
     return LoadedRegister(validate(Register, data, path), path, content_sha256(data))
 
 
