@@ -146,11 +146,12 @@ def attach_immersion(ctx: Context, p: Prepared, tide) -> None:
         p.tide_attrs["immersion_source"] = "none (a barometer measures air pressure; immersion does not apply)"
     elif store.kind == "pressure":
         # a water-level logger knows its own immersion: its level against its own elevation
+        margin = swash_margin(ctx, station.id)
         state = state_from_level(store.time, conv.variables["water_level"], elevation_m=station.elevation_m,
-                                 margin_m=swash_margin(ctx, station.id))
+                                 margin_m=margin)
         conv.immersion = state
         p.tide_attrs["immersion_source"] = ("the logger's own water level against its elevation (unknown within "
-                                            f"{swash_margin(ctx, station.id):g} m of it)")
+                                            f"{margin:g} m of it)")
         p.sources["immersion_source"] = np.where(state == 2, IMMERSION_UNKNOWN,
                                                  immersion_source_from_reference(OBSERVED_GAUGE)).astype(np.int8)
         p.qc_args = dict(immersion=state)
