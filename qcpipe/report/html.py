@@ -13,6 +13,10 @@ archive.  Every page is written atomically (temporary file, then
 ``os.replace``); the overview is written last, so it never links to a page
 that is not there yet.
 
+Figures are drawn once per content: ``figure_cache`` keeps each PNG in
+``<archive>/reports/.figure-cache`` under the SHA-256 of the plotting code and
+the arrays it was given, so a page of an unchanged dataset costs no drawing.
+
 Python prepares the values (numbers, table rows, figures as PNG ``data:``
 URIs); the Jinja2 templates in ``qcpipe/report/templates`` (``page.html.j2``,
 ``index.html.j2``, ``station.html.j2``, ``macros.html.j2`` and the style
@@ -88,6 +92,7 @@ from ..archive.store import safe_file_name
 from ..checks.flags import FLAG_KEYS, FLAG_WORDS
 from ..files import atomic_path
 from . import plots
+from .figure_cache import CACHE_DIR_NAME, FigureCache, png_size
 from .model import NOTICE_KINDS, Notice
 
 #: text symbols matching the plot markers (circle, square, triangle, cross, bar)
@@ -203,6 +208,7 @@ class _Archive:
 
     def __init__(self, root: Path):
         self.root = root
+        self.figures = FigureCache(root / "reports" / CACHE_DIR_NAME)
         self._cache: dict[Path, object] = {}
         self._headers: dict[Path, dict] = {}
         cat_path = root / "catalog.sqlite"
@@ -294,10 +300,10 @@ def _text(value) -> str:
     return "" if value is None else str(value)
 
 
-def _img(fig, alt: str, caption: str = "") -> dict:
+def _img(png: bytes, alt: str, caption: str = "") -> dict:
     """A figure for the templates: the PNG as a ``data:`` URI, its size in pixels, alt text and caption."""
-    data = base64.b64encode(plots.png_bytes(fig)).decode("ascii")
-    w, h = (int(round(x * fig.dpi)) for x in fig.get_size_inches())
+    w, h = png_size(png)
+    data = base64.b64encode(png).decode("ascii")
     return {"src": f"data:image/png;base64,{data}", "alt": alt, "width": w, "height": h, "caption": caption}
 
 
@@ -566,7 +572,7 @@ def _fmt(x, nd=1, unit="") -> str:
     return "not recorded" if not np.isfinite(f) else f"{f:.{nd}f}{unit}"
 
 
-def _air_pressure_section(station: str, deployment: str, ds, attrs: dict) -> dict | None:
+def _air_pressure_section(station: str, deployment: str, ds, attrs: dict, figures: FigureCache) -> dict | None:
     """A level logger's barometric correction: where its air pressure came from, and a plot of it."""
     if "water_level_air_pressure_source" not in attrs:
         return None
@@ -582,21 +588,21 @@ def _air_pressure_section(station: str, deployment: str, ds, attrs: dict) -> dic
         src = ds["air_pressure_source"].values
         marks = np.where(src == 2, 3, 1).astype(np.int8)
         values, units = _display_values(ds, "air_pressure_subtracted")
-        fig = plots.plot_variable(ds["time"].values, values, marks, name="air pressure subtracted", units=units,
-                                  title=f"{station} {deployment}: air pressure subtracted")
-        figure = _img(fig, f"air pressure subtracted at {station}",
+        png = figures.png(plots.plot_variable, ds["time"].values, values, marks, name="air pressure subtracted",
+                          units=units, title=f"{station} {deployment}: air pressure subtracted")
+        figure = _img(png, f"air pressure subtracted at {station}",
                       "Air pressure subtracted for the water level: circles (pass) from the site's barometer, "
                       "triangles (suspect) the configured constant where the barometer had no valid value.")
     return {"facts": facts, "figure": figure}
 
 
-def _clock_section(ds, attrs: dict) -> dict | None:
+def _clock_section(ds, attrs: dict, figures: FigureCache) -> dict | None:
     if "clock_transition_offset_s" not in attrs and "clock_verdict" not in attrs:
         return None
     verdict = str(attrs.get("clock_verdict", "no verdict recorded"))
     figure = None
     if "transition_offset" in ds.data_vars:
-        figure = _img(plots.plot_transition_offsets(ds["transition_offset"].values, verdict_text=verdict),
+        figure = _img(figures.png(plots.plot_transition_offsets, ds["transition_offset"].values, verdict_text=verdict),
                       "histogram of transition offsets", "Offsets of the observed wet/dry transitions from the "
                       "predicted ones (minutes). Tide values are for data quality control only.")
     suspected = int(attrs.get("clock_error_suspected", 0) or 0) == 1
@@ -625,8 +631,8 @@ def _exposure_section(archive: _Archive, station: str, stem: str) -> dict | None
     if daily is not None:
         dd = archive.read(daily)
         mt = dd["max_aerial_temperature"].values if "max_aerial_temperature" in dd else None
-        out["figure"] = _img(plots.plot_daily_exposure(dd["day"].values, dd["hours_emersed"].values, mt,
-                                                       title=f"Daily exposure at {station}"),
+        out["figure"] = _img(archive.figures.png(plots.plot_daily_exposure, dd["day"].values,
+                                                 dd["hours_emersed"].values, mt, title=f"Daily exposure at {station}"),
                              f"daily exposure at {station}",
                              "Hours the sensing point was out of water per UTC day, and the highest temperature "
                              "while emersed (from the station's temperature logger, fail and missing samples "
@@ -695,13 +701,13 @@ def _water_level_figure(archive: _Archive, station: str, ds, attrs: dict) -> dic
     elev = _scalar(ds, "sensor_height")
     own = g["station"] == station
     what = "the pressure sensor" if own else "this station's sensing point"
-    fig = plots.plot_water_level(gds["time"].values, level, pred, elevation_m=elev,
-                                 datum_name=str(gds.attrs.get("vertical_datum", "datum")),
-                                 title=f"Water level at {g['station']} ({g['deployment']})")
+    png = archive.figures.png(plots.plot_water_level, gds["time"].values, level, pred, elevation_m=elev,
+                              datum_name=str(gds.attrs.get("vertical_datum", "datum")),
+                              title=f"Water level at {g['station']} ({g['deployment']})")
     cap = (f"Observed water level at gauge {g['station']} (fail and missing samples left out)"
            f"{' and its harmonic prediction' if pred is not None else ''}, with the height of {what}. "
            "Tide values are for data quality control only, not for navigation or safety planning.")
-    return _img(fig, f"water level at {g['station']}", cap)
+    return _img(png, f"water level at {g['station']}", cap)
 
 
 def _dataset_section(archive: _Archive, station: str, row: dict, in_run: dict, out_dir: Path,
@@ -731,19 +737,19 @@ def _dataset_section(archive: _Archive, station: str, row: dict, in_run: dict, o
     figures = []
     for var in _qc_variables(ds):
         values, units = _display_values(ds, var)
-        fig = plots.plot_variable(ds["time"].values, values, ds[f"{var}_qc"].values, immersion=imm,
-                                  name=_var_label(ds, var), units=units,
+        png = archive.figures.png(plots.plot_variable, ds["time"].values, values, ds[f"{var}_qc"].values,
+                                  immersion=imm, name=_var_label(ds, var), units=units,
                                   title=f"{station} {row['deployment']}: {_var_label(ds, var)}")
         long_name = ds[var].attrs.get("long_name", var)
-        figures.append(_img(fig, f"{var} at {station}",
+        figures.append(_img(png, f"{var} at {station}",
                             f"{long_name}; markers show the aggregate flag of each sample"
                             f"{'; shaded: emersed (out of water)' if imm is not None and (imm == 0).any() else ''}."))
     water = None
     if "water_level" in ds.data_vars or (not water_level_shown and imm is not None and "wetness" in ds.data_vars):
         water = _water_level_figure(archive, station, ds, attrs)
     return {"deployment": row["deployment"], "version": int(row["version"]), "info": info, "figures": figures,
-            "water_level": water, "air_pressure": _air_pressure_section(station, row["deployment"], ds, attrs),
-            "clock": _clock_section(ds, attrs), "exposure": _exposure_section(archive, station, stem),
+            "water_level": water, "air_pressure": _air_pressure_section(station, row["deployment"], ds, attrs, archive.figures),
+            "clock": _clock_section(ds, attrs, archive.figures), "exposure": _exposure_section(archive, station, stem),
             "tide": _tide_section(archive, station, stem)}
 
 
@@ -836,4 +842,5 @@ def write_run_report(archive_root: str | Path, run: dict, *, out_dir: str | Path
         flag_classes=_flag_classes(), diff=_diff_table(run["diff"]) if run.get("diff") else None,
         stations=_table(["Station", "Name", "Deployments (latest version)", "Updated in this run"], station_rows)
         if station_rows else None))
+    archive.figures.prune()
     return index

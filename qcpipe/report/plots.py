@@ -23,6 +23,7 @@ matplotlib.use("Agg", force=False)   # no display needed; harmless when already 
 
 import matplotlib.dates as mdates  # noqa: E402
 import numpy as np  # noqa: E402
+from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
 
@@ -111,7 +112,8 @@ def plot_variable(times, values, agg_flags, *, immersion=None, name: str, units:
     Figure
         One grey line for the series (gid ``"series"``), one marker set per
         flag class present (gid ``"flag-<n>"``); missing samples are drawn as
-        ticks along the bottom edge (their value is unknown).
+        ticks along the bottom edge (their value is unknown); emersed runs are
+        one rectangle each in a single collection (gid ``"emersed"``).
     """
     t = _as_time(times)
     v = np.asarray(values, dtype=np.float64)
@@ -127,9 +129,13 @@ def plot_variable(times, values, agg_flags, *, immersion=None, name: str, units:
         if imm.shape != t.shape:
             raise ValueError(f"plot_variable: immersion must match times; found {imm.shape} and {t.shape}")
         runs = _emersed_runs(t, imm)
-        for start, end in runs:
-            ax.axvspan(start, end, color=EMERSED_COLOUR, alpha=0.35, lw=0, zorder=0)
-        if runs:
+        if runs:            # one collection for all runs: one draw call however many tides the record holds
+            x = mdates.date2num(np.asarray(runs, dtype="datetime64[ns]"))
+            shade = PolyCollection([[(a, 0.0), (a, 1.0), (b, 1.0), (b, 0.0)] for a, b in x],
+                                   transform=ax.get_xaxis_transform(), facecolors=EMERSED_COLOUR, alpha=0.35,
+                                   linewidths=0, zorder=0)
+            shade.set_gid("emersed")
+            ax.add_collection(shade, autolim=False)
             handles.append(Patch(facecolor=EMERSED_COLOUR, alpha=0.35, label="emersed (out of water)"))
     (line,) = ax.plot(t, v, color="#555555", lw=0.6, alpha=0.7, zorder=1, label="_series")
     line.set_gid("series")

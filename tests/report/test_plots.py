@@ -93,14 +93,17 @@ def test_variable_legend_names_the_classes_present_and_the_shading():
 def test_variable_shades_each_emersed_run_once():
     t, v, f, imm = sample_variable()
     fig = plots.plot_variable(t, v, f, immersion=imm, name="temperature", units="degC", title="x")
-    spans = [p for p in fig.axes[0].patches]
+    (shade,) = by_gid(fig, "emersed")
+    spans = [p.vertices[:, 0] for p in shade.get_paths()]
     assert len(spans) == 2          # samples 10-17 and 30-35 (unknown at 50 is not shaded)
+    days = mdates.date2num(t)
+    assert [(s.min(), s.max()) for s in spans] == [(days[10], days[17]), (days[30], days[35])]
 
 
 def test_variable_without_immersion_has_no_shading_entry():
     t, v, f, _ = sample_variable()
     fig = plots.plot_variable(t, v, f, name="pH", units="", title="x")
-    assert not fig.axes[0].patches
+    assert not fig.axes[0].patches and not by_gid(fig, "emersed")
     assert not any("emersed" in s for s in legend_texts(fig))
     assert fig.axes[0].get_ylabel() == "pH"
 
