@@ -26,6 +26,25 @@ REPO = Path(__file__).resolve().parents[1]
 CF_TABLES = REPO / "tests" / "reference" / "cf"
 
 
+def pytest_configure(config):
+    """One report-figure cache for every run of the session (in this process and the commands it
+    starts): figures are keyed by the SHA-256 of the plotting code and their arrays, so the many runs
+    over copies of the demo draw each figure once (README, "Reports").  tests/report/test_figure_cache.py
+    tests the cache itself with folders of its own."""
+    if "QCPIPE_FIGURE_CACHE" not in os.environ:
+        import tempfile
+
+        os.environ["QCPIPE_FIGURE_CACHE"] = tempfile.mkdtemp(prefix="qcpipe-test-figures-")
+        config._qcpipe_figure_cache = os.environ["QCPIPE_FIGURE_CACHE"]
+
+
+def pytest_unconfigure(config):
+    folder = getattr(config, "_qcpipe_figure_cache", None)
+    if folder:
+        shutil.rmtree(folder, ignore_errors=True)
+        os.environ.pop("QCPIPE_FIGURE_CACHE", None)
+
+
 @dataclass
 class DemoRun:
     root: Path

@@ -208,7 +208,7 @@ class _Archive:
 
     def __init__(self, root: Path):
         self.root = root
-        self.figures = FigureCache(root / "reports" / CACHE_DIR_NAME)
+        self.figures = FigureCache(os.environ.get("QCPIPE_FIGURE_CACHE") or root / "reports" / CACHE_DIR_NAME)
         self._cache: dict[Path, object] = {}
         self._headers: dict[Path, dict] = {}
         cat_path = root / "catalog.sqlite"
