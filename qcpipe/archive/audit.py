@@ -17,6 +17,8 @@ class AuditResult:
     problems: list[str] = field(default_factory=list)
     not_yet_processed: list[str] = field(default_factory=list)
     orphans: list[str] = field(default_factory=list)
+    config_checked: int = 0
+    config_not_kept: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -24,10 +26,13 @@ class AuditResult:
 
     def lines(self) -> list[str]:
         out = [f"raw files in the catalog: {self.raw_files} ({self.archived} archived, {self.quarantined} "
-               f"quarantined); datasets checked: {self.datasets_checked}"]
+               f"quarantined); datasets checked: {self.datasets_checked}; configuration copies checked: "
+               f"{self.config_checked}"]
         out += [f"  PROBLEM {p}" for p in self.problems]
         out += [f"  not yet processed: {p}" for p in self.not_yet_processed]
         out += [f"  not in the catalog (left by an interrupted run?): {p}" for p in self.orphans]
+        out += [f"  configuration not kept in the archive (datasets made before qcpipe kept copies): {p}"
+                for p in self.config_not_kept]
         out.append("all accounted for, all hashes match" if self.ok else f"{len(self.problems)} problem(s)")
         return out
 
@@ -79,6 +84,7 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
             res.problems.append(f"dataset {p.name} is missing (expected at {p})")
         elif d.get("sha256") and sha256_of_file(p) != d["sha256"]:
             res.problems.append(f"dataset {p.name} does not match its SHA-256 {d['sha256'][:12]}")
+    _check_config_copies(paths, catalog, res)
     seen = {r["sha256"] for r in rows}
     if inbox is not None and Path(inbox).is_dir():
         for p in sorted(Path(inbox).rglob("*")):
@@ -89,6 +95,41 @@ def audit_archive(paths, catalog, inbox: Path | None = None) -> AuditResult:
             if p.is_file() and not p.name.startswith(".") and p.resolve() not in known_paths:
                 res.orphans.append(str(p.relative_to(paths.root)))
     return res
+
+
+def config_copy_hash(path: Path) -> str | None:
+    """The hash a configuration copy ``config/<kind>/<sha256>.toml`` must be named by: the file's SHA-256
+    for harmonic constants, the content hash of its TOML for the others (as the catalog records them);
+    None when the file is not valid UTF-8 TOML."""
+    import tomllib
+
+    from ..config.loading import content_sha256
+
+    if path.parent.name == "tide_constants":
+        return sha256_of_file(path)
+    try:
+        return content_sha256(tomllib.loads(path.read_bytes().decode("utf-8")))
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return None
+
+
+def _check_config_copies(paths, catalog, res: AuditResult) -> None:
+    """Every configuration copy holds what its name says; every dataset's rule set and register are kept."""
+    folder = paths.root / "config"
+    for p in sorted(folder.glob("*/*.toml")) if folder.is_dir() else []:
+        res.config_checked += 1
+        if config_copy_hash(p) != p.stem:
+            res.problems.append(f"configuration copy {p.relative_to(paths.root)} does not hold what its name "
+                                "(its content's SHA-256) says")
+    missing = set()
+    for d in catalog.datasets():
+        if d.get("pruned"):
+            continue
+        for kind in ("rules", "register"):
+            sha = d.get(f"{kind}_sha256")
+            if sha and not paths.config_snapshot(kind, sha).is_file():
+                missing.add(f"{'rule set' if kind == 'rules' else 'station register'} {sha[:12]}")
+    res.config_not_kept = sorted(missing)
 
 
 def _inside(path: Path, root: Path) -> bool:

@@ -64,6 +64,7 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
         rules_note = _put_rule_set(ctx, latest, put)
         inputs = latest.get("qc_inputs") or qc_inputs(ctx, dep.id)
         (data / "config").mkdir(parents=True, exist_ok=True)
+        kept_notes = _put_config_copies(ctx, latest, inputs, put)
         excerpt = data / "config" / "register_excerpt.toml"
         excerpt.write_text(register_excerpt(inputs), encoding="utf-8")
         payload.append(("data/config/register_excerpt.toml", excerpt))
@@ -74,7 +75,8 @@ def write_bag(ctx, deployment_id: str, out_dir: str | Path) -> Path:
                             encoding="utf-8")
         payload.append(("data/config/annotations.toml", ann_file))
         readme = data / "README.txt"
-        readme.write_text(_readme(station, dep, latest, raws, derived, rules_note, ann), encoding="utf-8")
+        readme.write_text(_readme(station, dep, latest, raws, derived, [rules_note, *kept_notes], ann),
+                          encoding="utf-8")
         payload.append(("data/README.txt", readme))
 
         manifest = "".join(f"{sha256_of_file(p)}  {rel}\n" for rel, p in sorted(payload))
@@ -121,7 +123,31 @@ def _put_rule_set(ctx, latest: dict, put) -> str:
             "the dataset: the archive kept no copy of that one (made before qcpipe kept configuration copies)")
 
 
-def _readme(station, dep, latest, raws, derived, rules_note, ann) -> str:
+def _put_config_copies(ctx, latest: dict, inputs: dict, put) -> list[str]:
+    """Enclose the whole station register and the site's harmonic constants file as they were when the
+    dataset was made (the archive's copies by content hash); returns the README's lines on them."""
+    notes = []
+    reg_copy = ctx.paths.config_snapshot("register", latest["register_sha256"])
+    name = Path(ctx.register.path).name
+    if reg_copy.is_file():
+        put(reg_copy, f"config/{name}")
+        notes.append(f"config/{name}: the whole station register as used (SHA-256 {latest['register_sha256']})")
+    else:
+        notes.append("the whole station register as used is not enclosed: the archive kept no copy of it (made "
+                     "before qcpipe kept configuration copies); config/register_excerpt.toml has its entries")
+    const_sha = inputs.get("tide_constants_sha256")
+    if const_sha:
+        copy = ctx.paths.config_snapshot("tide_constants", const_sha)
+        if copy.is_file():
+            put(copy, "config/harmonic_constants.toml")
+            notes.append(f"config/harmonic_constants.toml: the site's harmonic constants as used (SHA-256 {const_sha})")
+        else:
+            notes.append(f"the site's harmonic constants (SHA-256 {const_sha}) are not enclosed: the archive "
+                         "kept no copy of them")
+    return notes
+
+
+def _readme(station, dep, latest, raws, derived, rules_notes, ann) -> str:
     lines = [
         f"Archive package of station {station.id} ({station.name}), deployment {dep.id}",
         "",
@@ -132,8 +158,9 @@ def _readme(station, dep, latest, raws, derived, rules_note, ann) -> str:
         "",
         f"raw/         {len(raws)} raw logger file(s) as downloaded (file names prefixed with their SHA-256)",
         f"derived/     {len(derived)} derived product(s): tide events, datums, exposure (NetCDF and CSV)",
-        f"config/      the rule set file, the register entries used, {len(ann)} review annotation(s)",
-        f"             {rules_note}",
+        f"config/      the rule set file, the register (whole, and its entries used: register_excerpt.toml),",
+        f"             {len(ann)} review annotation(s) of the station as used",
+        *(f"             {note}" for note in rules_notes),
         "",
         "Tide values in these files are for data quality control only, not for navigation or safety planning.",
         "Manifests: manifest-sha256.txt (payload), tagmanifest-sha256.txt (tag files); BagIt 1.0 (RFC 8493).",

@@ -1,6 +1,6 @@
 """The configuration that made a dataset is kept in the archive by content hash, and a bag encloses
 the rule set file that made its dataset, not the workspace's current one (issue 18 section 1, second
-bullet; rule set part).
+bullet): rule set, register and harmonic constants, and audit checks the copies.
 
 The demo is processed without the orchestrator (rule set A), a temperature threshold is changed and
 the affected deployments re-run (rule set B, version 2), then a pH threshold is changed without a
@@ -70,3 +70,49 @@ def test_bag_encloses_the_rule_set_that_made_its_dataset(demo):
     readme = (bag / "data" / "README.txt").read_text()
     assert f"rule set kelpwhistle-cove (SHA-256 {latest['rules_sha256']})" in readme
     assert "CURRENT" not in readme and ctx.rules.sha256 not in readme
+
+
+def test_bag_encloses_the_whole_register_and_the_constants_as_used(demo):
+    """The register is edited after the datasets were made: the bag holds the bytes used, not the edit."""
+    ctx = load_context(demo.workspace)
+    reg_file = demo.root / "sample_raw" / "register.toml"
+    used = reg_file.read_bytes()
+    edit(reg_file, "[[site]]", "# a comment added after the datasets were made\n[[site]]")
+    const_file = ctx.register.constituents_path("kelpwhistle-cove")
+    out = demo.root / "bags-register"
+    try:
+        done = run_cli("package", "--deployment", TEMP, "--out", str(out), "--workspace", str(demo.workspace),
+                       cwd=demo.root)
+    finally:
+        reg_file.write_bytes(used)
+    assert done.returncode == 0, done.stdout + done.stderr
+    (bag,) = out.iterdir()
+    assert (bag / "data" / "config" / "register.toml").read_bytes() == used
+    assert (bag / "data" / "config" / "harmonic_constants.toml").read_bytes() == const_file.read_bytes()
+    readme = (bag / "data" / "README.txt").read_text()
+    assert "config/register.toml: the whole station register as used" in readme
+    assert "config/harmonic_constants.toml: the site's harmonic constants as used" in readme
+
+
+def test_audit_checks_the_configuration_copies(demo):
+    """A copy whose bytes no longer match its name is a problem; a dataset whose rule set copy is gone
+    is listed (archives made before copies were kept have none)."""
+    ctx = load_context(demo.workspace)
+    v1 = ctx.catalog.dataset_versions(TEMP)[0]
+    copy = ctx.paths.config_snapshot("rules", v1["rules_sha256"])
+    good = copy.read_bytes()
+    ok = run_cli("audit", "--workspace", str(demo.workspace), cwd=demo.root)
+    assert ok.returncode == 0 and "configuration copies checked: " in ok.stdout, ok.stdout + ok.stderr
+    assert int(ok.stdout.split("configuration copies checked: ")[1].split()[0]) == \
+        len(list((demo.archive / "config").glob("*/*.toml")))
+    try:
+        copy.write_bytes(good.replace(b"suspect = 4.0", b"suspect = 9.0"))
+        bad = run_cli("audit", "--workspace", str(demo.workspace), cwd=demo.root)
+        assert bad.returncode == 1
+        assert f"configuration copy config/rules/{copy.name} does not hold what its name" in bad.stdout
+        copy.unlink()
+        gone = run_cli("audit", "--workspace", str(demo.workspace), cwd=demo.root)
+        assert f"configuration not kept in the archive (datasets made before qcpipe kept copies): rule set " \
+               f"{v1['rules_sha256'][:12]}" in gone.stdout
+    finally:
+        copy.write_bytes(good)
