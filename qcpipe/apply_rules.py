@@ -8,12 +8,50 @@ from __future__ import annotations
 import numpy as np
 
 from . import checks
-from .config.rules import RuleSet, VariableRules
+from .config.rules import CHECK_ORDER, RuleSet, VariableRules
+
+
+def check_windows(rules: VariableRules) -> dict[str, float]:
+    """The stretch of record (s) each windowed check of ``rules`` needs to run: the spike test's whole
+    window (twice ``half_window``), the rate-of-change window, the flat-line test's ``suspect_after``."""
+    out = {}
+    if rules.spike is not None:
+        out["spike"] = 2 * rules.spike.half_window
+    if rules.rate_of_change is not None:
+        out["rate_of_change"] = rules.rate_of_change.window
+    if rules.flat_line is not None:
+        out["flat_line"] = rules.flat_line.suspect_after
+    return out
+
+
+def record_span_s(values, times) -> float:
+    """Seconds from the first to the last sample with a value (0 with fewer than two)."""
+    t = np.asarray(times, dtype="datetime64[ns]")[~np.isnan(np.asarray(values, dtype=np.float64))]
+    return float((t.max() - t.min()).astype(np.int64)) / 1e9 if t.size > 1 else 0.0
+
+
+def windows_longer_than_record(values, times, rules: VariableRules) -> dict[str, tuple[float, float]]:
+    """Checks of ``rules`` whose window (:func:`check_windows`) is longer than the record's span
+    (:func:`record_span_s`): {check: (window s, span s)}.  They cannot run and flag 2 (not evaluated)."""
+    span = record_span_s(values, times)
+    return {c: (w, span) for c, w in check_windows(rules).items() if w > span}
+
+
+def not_evaluated_flags(values) -> np.ndarray:
+    """2 (not evaluated) where a value exists, 9 where it is missing."""
+    v = np.asarray(values, dtype=np.float64)
+    return np.where(np.isnan(v), checks.MISSING, checks.NOT_EVALUATED).astype(np.int8)
 
 
 def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndarray]:
-    """Run every check ``rules`` configures on one variable; returns {check: int8 flags}."""
-    out: dict[str, np.ndarray] = {}
+    """Run every check ``rules`` configures on one variable; returns {check: int8 flags}.
+
+    A check whose window is longer than the record (:func:`windows_longer_than_record`) is not
+    run: it flags 2 (not evaluated) where a value exists."""
+    too_long = windows_longer_than_record(values, times, rules)
+    if too_long:
+        rules = rules.model_copy(update={c: None for c in too_long})
+    out: dict[str, np.ndarray] = {c: not_evaluated_flags(values) for c in too_long}
     if rules.gross_range is not None:
         g = rules.gross_range
         out["gross_range"] = checks.gross_range_flags(values, sensor_min=g.sensor_min, sensor_max=g.sensor_max,
@@ -37,6 +75,25 @@ def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndar
                                                   reference=f.reference, mode=f.mode)
     if rules.gap is not None:
         out["gap"] = checks.gap_flags(times, values, max_gap_s=rules.gap.max_gap)
+    if too_long:
+        out = {c: out[c] for c in CHECK_ORDER if c in out}
+    return out
+
+
+def unevaluated_checks(variables: dict[str, np.ndarray], times, rule_set: RuleSet, station: str,
+                       ) -> dict[tuple[str, str], tuple[float, float]]:
+    """{(variable, check): (window s, record span s)} for the checks :func:`apply_rule_set` leaves not
+    evaluated because their window is longer than the record (the longest window of the base and
+    state-aware parameters)."""
+    out: dict[tuple[str, str], tuple[float, float]] = {}
+    for name, values in variables.items():
+        rules = rule_set.for_variable(name, station)
+        if rules is None:
+            continue
+        for r in [rules] + [rules.for_state(s) for s in ("immersed", "emersed") if getattr(rules, f"when_{s}")]:
+            for check, (w, span) in windows_longer_than_record(values, times, r).items():
+                if w > out.get((name, check), (0.0, 0.0))[0]:
+                    out[(name, check)] = (w, span)
     return out
 
 

@@ -468,6 +468,11 @@ def _check(args) -> int:
         return 0
     ws = load_workspace(args.workspace)
     reg, lay, rules = ws.load()
+    if ws.inbox.is_dir():                   # a link from the inbox into the archive is refused here too
+        from .ingest.discover import list_inbox
+        from .pipeline.inbox import check_no_link_into_archive
+
+        check_no_link_into_archive(ws.path, ws.inbox, ws.archive, list_inbox(ws.inbox)[1])
     print(f"ok: register {ws.register_path.name}: {len(reg.station)} stations, {len(reg.instrument)} instruments, "
           f"{len(reg.deployment)} deployments (sha256 {reg.sha256[:12]})")
     print(f"ok: layouts {ws.layouts_path.name}: {', '.join(lay.layouts)}")

@@ -34,6 +34,10 @@ TRANSIENT_ERRNOS = frozenset({errno.EAGAIN, errno.EINTR, errno.EBUSY, errno.EIO,
                               errno.ESTALE, errno.ECONNRESET, errno.ENETUNREACH, errno.EHOSTUNREACH})
 
 
+class SourceChanged(QcpipeError, OSError):
+    """A file that vanished or changed between being hashed and being copied or read."""
+
+
 def is_transient(exc: BaseException) -> bool:
     """Whether ``exc`` is a passing I/O failure that a later attempt may not meet.
 

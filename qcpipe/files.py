@@ -73,10 +73,27 @@ def write_text_atomic(final: str | Path, text: str) -> Path:
     return Path(final)
 
 
-def copy_atomic(src: str | Path, final: str | Path) -> Path:
-    """Copy ``src`` to ``final`` atomically (the source is only read)."""
+def write_bytes_atomic(final: str | Path, data: bytes) -> Path:
+    """Write ``data`` to ``final`` atomically."""
     with atomic_path(final) as tmp:
-        shutil.copyfile(src, tmp)
+        tmp.write_bytes(data)
+    return Path(final)
+
+
+def copy_atomic(src: str | Path, final: str | Path, *, sha256: str | None = None) -> Path:
+    """Copy ``src`` to ``final`` atomically (the source is only read).
+
+    With ``sha256``, the copy must have that hash, or nothing is kept and
+    :class:`qcpipe.errors.SourceChanged` is raised (the source changed since it was hashed)."""
+    from .errors import SourceChanged
+
+    with atomic_path(final) as tmp:
+        try:
+            shutil.copyfile(src, tmp)
+        except FileNotFoundError:
+            raise SourceChanged(f"{src}: vanished before it was copied") from None
+        if sha256 is not None and sha256_of_file(tmp) != sha256:
+            raise SourceChanged(f"{src}: its content changed after it was hashed")
     return Path(final)
 
 

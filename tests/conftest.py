@@ -76,6 +76,19 @@ def copy_demo(root: Path) -> Path:
     return root / "sample_raw" / "workspace.toml"
 
 
+def small_demo(root: Path, keep=("TL7-20940_temp.csv", "TL7-20934_temp.csv"),
+               download: str = "2026-10-05_download") -> tuple[Path, Path]:
+    """A copy of the demo workspace whose inbox holds only the files ``keep`` of one ``download`` (by
+    default two temperature loggers' first downloads: a run over them takes a few seconds); the
+    workspace file and the inbox."""
+    ws = copy_demo(root)
+    inbox = root / "sample_raw" / "inbox"
+    for p in sorted(inbox.rglob("*")):
+        if p.is_file() and not (p.parent.name == download and p.name in keep):
+            p.unlink()
+    return ws, inbox
+
+
 def demo_in_process(root: Path) -> SimpleNamespace:
     """A copy of the demo in ``root`` after one nightly run without the orchestrator
     (``nightly_run(ctx, InProcess())``): ``root``, ``workspace``, ``inbox``, ``archive`` (paths), ``first``

@@ -50,6 +50,15 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
+#: the longest duration a rule set may give (a window, a settling time, a gap): a year of 366 days.
+#: Loggers are recovered every few weeks to months; a check's window beyond a year is a typing error.
+MAX_DURATION_S = 366 * 86400.0
+#: the most samples a count parameter (min_samples, min_neighbours...) may ask for
+MAX_COUNT = 100_000
+#: the largest water-level threshold (m): more than any tidal range on Earth (about 16 m)
+MAX_LEVEL_M = 20.0
+
+
 def _duration(v: Any) -> float:
     if isinstance(v, (int, float)) and not isinstance(v, bool):
         raise ValueError(f"durations are text with a unit, e.g. '{v} min'")
@@ -58,14 +67,18 @@ def _duration(v: Any) -> float:
         raise ValueError(f"duration {v!r} is not a finite length of time")
     if s <= 0:
         raise ValueError(f"duration {v!r} must be longer than zero")
+    if s > MAX_DURATION_S:
+        raise ValueError(f"duration {v!r} is longer than a year (366 d), the longest a rule set allows; "
+                         "give a shorter one")
     return s
 
 
 def _seconds_or_duration(v: Any) -> float:
-    """Seconds given as a float (the defaults) or a duration text; either must be finite and positive."""
+    """Seconds given as a float (the defaults) or a duration text; either must be finite, positive and at
+    most :data:`MAX_DURATION_S`."""
     if isinstance(v, float):
-        if not math.isfinite(v) or v <= 0:
-            raise ValueError(f"duration {v!r} s must be finite and longer than zero")
+        if not math.isfinite(v) or not 0 < v <= MAX_DURATION_S:
+            raise ValueError(f"duration {v!r} s must be finite, longer than zero and at most a year (366 d)")
         return v
     return _duration(v)
 
@@ -114,7 +127,7 @@ class Spike(_Strict):
     half_window: float = Field(description="seconds either side (text in the file)")
     suspect: float = Field(gt=0)
     fail: float = Field(gt=0)
-    min_neighbours: int = Field(2, ge=1)
+    min_neighbours: int = Field(2, ge=1, le=MAX_COUNT)
     one_sided_edges: bool = Field(False, strict=True, description="also evaluate samples with neighbours "
                                   "on one side only (record ends, beside gaps); else they are not evaluated")
 
@@ -129,8 +142,8 @@ class Spike(_Strict):
 
 class RateOfChange(_Strict):
     window: float
-    n_sigma: float = Field(gt=0)
-    min_samples: int = Field(3, ge=2)
+    n_sigma: float = Field(gt=0, le=100)
+    min_samples: int = Field(3, ge=2, le=MAX_COUNT)
 
     _d = field_validator("window", mode="before")(classmethod(lambda cls, v: _duration(v)))
 
@@ -161,7 +174,7 @@ class Gap(_Strict):
 
 class ImmersionConsistency(_Strict):
     """Immersion-probe state against the reference water level (wetness only)."""
-    margin_m: float = Field(ge=0, description="swash/wave band either side of the sensor elevation, m")
+    margin_m: float = Field(ge=0, le=MAX_LEVEL_M, description="swash/wave band either side of the sensor elevation, m")
     fail_after: float
 
     _d = field_validator("fail_after", mode="before")(classmethod(lambda cls, v: _duration(v)))
@@ -176,8 +189,8 @@ class ImmersionGating(_Strict):
 
 class TideResidual(_Strict):
     """Observed water level against the harmonic prediction (water_level only), m."""
-    suspect: float = Field(gt=0)
-    fail: float = Field(gt=0)
+    suspect: float = Field(gt=0, le=MAX_LEVEL_M)
+    fail: float = Field(gt=0, le=MAX_LEVEL_M)
 
     @model_validator(mode="after")
     def _order(self):
@@ -238,7 +251,7 @@ class ImmersionSettings(_Strict):
     min_state: float = 600.0
     min_separation: float = Field(6.0, gt=0, description="below this separation of the two classes (Ashman's D, "
                                   "robust) the probe is not clearly bimodal: its immersion series is flagged suspect")
-    min_class_samples: int = Field(6, ge=1, description="fewest readings of the rarer state, in runs of two or more, "
+    min_class_samples: int = Field(6, ge=1, le=MAX_COUNT, description="fewest readings of the rarer state, in runs of two or more, "
                                    "before the probe is believed to show two states; fewer: suspect")
     reference_tolerance: float = Field(0.25, gt=0, lt=1, description="allowed difference between the automatic "
                                        "threshold and the midpoint of the air/water references, as a fraction "
@@ -251,7 +264,7 @@ class ImmersionSettings(_Strict):
                                    "fraction of the class distance, that makes the window suspect")
     min_between_run: float = Field(1800.0, description="readings held between the levels this long are a "
                                    "fouling sign (wetting and draining pass the band faster)")
-    min_window_samples: int = Field(6, ge=1, description="fewest readings of the kind a window counts before "
+    min_window_samples: int = Field(6, ge=1, le=MAX_COUNT, description="fewest readings of the kind a window counts before "
                                     "it gets a verdict")
     min_period: float = Field(86400.0, description="shortest unreliable period reported and flagged")
 
@@ -278,7 +291,7 @@ class ImmersionSettings(_Strict):
 class TideTiming(_Strict):
     """Transition-timing and effective-elevation checks (rule-set table [tide_timing])."""
     clock_error_threshold: float = 1200.0
-    elevation_tolerance_m: float = Field(0.15, gt=0)
+    elevation_tolerance_m: float = Field(0.15, gt=0, le=MAX_LEVEL_M)
     max_offset: float = 3 * 3600.0
 
     _d = field_validator("clock_error_threshold", "max_offset", mode="before")(classmethod(

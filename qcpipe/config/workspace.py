@@ -111,6 +111,25 @@ def load_workspace(path: str | Path) -> Workspace:
             from ..errors import ConfigError
             name = "register" if key == "register_file" else key
             raise ConfigError(f"{path}: key paths.{name}: contains a control character; write a plain path")
+    inbox, archive = (base / p.inbox).resolve(), (base / p.archive).resolve()
+    check_inbox_apart(path, inbox, archive)
     return Workspace(path, (base / p.register_file).resolve(), (base / p.layouts).resolve(),
-                     (base / p.rules).resolve(), (base / p.inbox).resolve(), (base / p.archive).resolve(),
+                     (base / p.rules).resolve(), inbox, archive,
                      (base / p.annotations).resolve() if p.annotations else None, model.archive.keep_versions)
+
+
+def check_inbox_apart(path: Path, inbox: Path, archive: Path) -> None:
+    """ConfigError (one line) when the inbox is the archive, lies inside it or holds it (links resolved):
+    the archive's own files would be read as new downloads, and quarantined or re-archived."""
+    from ..errors import ConfigError
+
+    if inbox == archive:
+        why = "is the archive folder"
+    elif archive in inbox.parents:
+        why = f"lies inside the archive {archive}"
+    elif inbox in archive.parents:
+        why = f"holds the archive {archive}"
+    else:
+        return
+    raise ConfigError(f"{path}: key paths.inbox: the inbox {inbox} {why} (links followed); give the inbox and "
+                      "the archive separate folders, neither inside the other")

@@ -103,7 +103,7 @@ def file_provenance(table: RawTable) -> dict:
     return out
 
 
-def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
+def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts, data: bytes | None = None) -> RawTable:
     name = shown_name(raw.name)
     candidates = [(n, lay) for n, lay in layouts.layouts.items() if lay.reads(raw.name)]
     if not candidates:
@@ -113,7 +113,7 @@ def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
     errors = []
     for lay_name, lay in candidates:
         try:
-            return read_raw_file(raw.path, lay, lay_name)
+            return read_raw_file(raw.path, lay, lay_name, data)
         except ParseError as err:
             errors.append(str(err))
     if len(errors) == 1:
@@ -124,13 +124,16 @@ def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts) -> RawTable:
                        f"({tried}); check the file or make the layouts' file_glob patterns disjoint")
 
 
-def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) -> IngestedFile:
+def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
+                data: bytes | None = None) -> IngestedFile:
     """Parse ``raw``, find its instrument and deployment, convert times to UTC and trim.
+
+    ``data``: the file's bytes, when the caller has read (and checked) them; else the file is read here.
 
     Raises FileRejected (a one-line reason naming file, line or key and what
     to do) when the file cannot be read or matches no deployment.
     """
-    table = _read_with_layouts(raw, layouts)
+    table = _read_with_layouts(raw, layouts, data)
     name = shown_name(raw.name)
     inst = register.instrument_by_serial(table.serial)
     if inst is None:

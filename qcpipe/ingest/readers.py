@@ -347,12 +347,15 @@ def _refuse_or_skip(layout: Layout, name: str, bad: np.ndarray, message, skipped
     return ~bad
 
 
-def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "") -> RawTable:
-    """Parse one raw file with ``layout``; raise ParseError naming file, line and fix."""
+def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "", data: bytes | None = None) -> RawTable:
+    """Parse one raw file with ``layout``; raise ParseError naming file, line and fix.
+
+    ``data``: the file's bytes when the caller has read them already (then the file is not opened)."""
     path = Path(path)
     name = shown_name(path)
     try:
-        data = path.read_bytes()
+        if data is None:
+            data = path.read_bytes()
     except OSError as err:
         raise ParseError(f"{name}: cannot read ({err.strerror}); check that the file exists and may be "
                          "read, or re-download it") from None

@@ -11,16 +11,16 @@ import xarray as xr
 
 from .. import __version__, lineage, progress
 from ..archive.catalog import utc_now
-from ..archive.cf import add_air_pressure, add_source_variable, build_cf_dataset
+from ..archive.cf import add_air_pressure, add_source_variable, build_cf_dataset, flag_name
 from ..archive.ncio import read_attrs, read_dataset, write_dataset_atomic
 from ..checks import barometer_fallback_flags
 from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
 from ..derive import products as derived
 from ..files import atomic_path, copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
-from ..apply_rules import apply_rule_set, flag_counts
+from ..apply_rules import apply_rule_set, flag_counts, unevaluated_checks
 from ..report.words import (clock_correction_text, clock_verdict_text, companion_clock_text, elevation_text,
-                            no_reference_text, probe_finding_text)
+                            no_reference_text, probe_finding_text, window_longer_than_record_text)
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
 from ..tide.companion import shares_error, step_lag
@@ -52,6 +52,7 @@ class Prepared:
     sources: dict = field(default_factory=dict)    # per-sample source variables: immersion_source, tide_reference_source
     qc_key: str = ""                               # lineage: what this dataset is made from
     qc_inputs: dict = field(default_factory=dict)
+    unevaluated: dict = field(default_factory=dict)  # (variable, check) -> why it flags 2 (window too long)
 
 
 def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedFile] = (),
@@ -200,6 +201,10 @@ def apply_rules(ctx: Context, p: Prepared) -> tuple[dict, dict]:
     manual, notes = manual_ranges(ctx, p.station.id, p.qc_vars)
     flags = apply_rule_set(p.qc_vars, p.store.time, ctx.rules, p.station.id, p.conflicts, manual=manual,
                            **p.qc_args)
+    for (var, check), (window_s, span_s) in unevaluated_checks(p.qc_vars, p.store.time, ctx.rules,
+                                                               p.station.id).items():
+        p.unevaluated[(var, check)] = window_longer_than_record_text(var, check, window_s, span_s)
+        p.notices.append(Notice("rules", p.unevaluated[(var, check)], p.station.id, p.dep.id))
     if "tide_residual" in flags.get("water_level", {}):
         res = p.conv.variables["water_level"] - p.qc_args["predicted_level"]
         p.tide_attrs["tide_residual_rms_m"] = round(float(np.sqrt(np.nanmean(res ** 2))), 4)
@@ -252,6 +257,8 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
         add_air_pressure(ds, enc, conv.air_pressure, conv.air_pressure_source)
     for var, lines in manual_notes.items():
         ds[f"{var}_qc_manual"].attrs["comment"] = "review annotations: " + " | ".join(lines)
+    for (var, check), text in p.unevaluated.items():
+        ds[flag_name(var, check)].attrs["comment"] = text
     # one time for the dataset and its catalog row; date_created is version 1's, which the catalog
     # keeps even when that version's file has been pruned
     first = cat.dataset_versions(dep.id)
@@ -274,8 +281,8 @@ def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, n
     with cat.transaction() as con:
         for f in new_files:
             dest = ctx.paths.raw_copy(station.id, dep.id, f.raw.sha256, f.raw.name)
-            if not dest.exists():
-                copy_atomic(f.raw.path, dest)
+            if not dest.exists():          # kept by the read step; else copied now, and it must match its hash
+                copy_atomic(f.raw.path, dest, sha256=f.raw.sha256)
             cat.record_raw(con, sha256=f.raw.sha256, size=f.raw.size, original_name=f.raw.name,
                            original_path=str(f.raw.path), archived_path=str(dest), station=station.id,
                            deployment=dep.id, layout=f.layout,

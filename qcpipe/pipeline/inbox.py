@@ -10,8 +10,8 @@ from .. import progress
 from ..config.layouts import LoadedLayouts
 from ..config.register import LoadedRegister
 from ..errors import ConfigError
-from ..files import copy_atomic, write_text_atomic
-from ..ingest.discover import RawFile, discover_files
+from ..files import copy_atomic, write_bytes_atomic, write_text_atomic
+from ..ingest.discover import InboxSkip, RawFile, discover_files
 from .context import Context
 
 if TYPE_CHECKING:                 # the readers (pandas) are imported when a file is read
@@ -23,45 +23,95 @@ def find_new_files(ctx: Context) -> tuple[list[RawFile], dict]:
 
     Content hashes come from the catalog's cache of the inbox (``Catalog.inbox_hashes``) for
     files whose size and time stamps are those it recorded; the others are read and hashed,
-    and the cache is written back (in one transaction) for the next run."""
+    and the cache is written back (in one transaction) for the next run.
+
+    A link in the inbox that leads into the archive stops the run here, before anything is read
+    (ConfigError): the archive's own files would be taken for new downloads."""
     if not ctx.inbox.is_dir():
         raise ConfigError(f"{ctx.workspace_path}: key paths.inbox: folder {ctx.inbox} does not exist; "
                           "create it or correct the path")
     catalog = ctx.catalog
     cached = catalog.inbox_hashes()
     new, counts, hashes = discover_files(ctx.inbox, catalog.known_hashes(), cached)
+    check_no_link_into_archive(ctx.workspace_path, ctx.inbox, ctx.paths.root, counts["links_out"])
     if hashes != cached:
         catalog.save_inbox_hashes(hashes)
     progress.expect("read", len(new))
     return new, counts
 
 
+def check_no_link_into_archive(workspace: Path, inbox: Path, archive: Path, links_out) -> None:
+    """ConfigError (one line) naming the first inbox link, of ``links_out`` ((link, target) pairs), that leads
+    into the archive."""
+    root = Path(archive).resolve()
+    for link, target in links_out:
+        if target is not None and (target == root or root in target.parents):
+            raise ConfigError(f"{workspace}: key paths.inbox: the inbox {inbox} holds a link "
+                              f"{link.relative_to(inbox)} that leads into the archive {root} ({target}); remove "
+                              "the link (the archive's files must never be read as new downloads)")
+
+
 # --- one file -------------------------------------------------------------------
 
 @dataclass
 class FileOutcome:
+    """A file read: ingested, rejected (``reason``, to quarantine) or skipped this run (``skipped``: it
+    vanished or changed since it was listed; neither quarantined nor recorded, so the next run sees it)."""
     raw: RawFile
     ingested: IngestedFile | None = None
     reason: str | None = None
+    skipped: InboxSkip | None = None
 
 
-def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts) -> FileOutcome:
-    """Ingest one file; a rejected file comes back with its one-line reason (never raises)."""
+def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
+                  data: bytes | None = None) -> FileOutcome:
+    """Ingest one file; a rejected file comes back with its one-line reason (never raises).
+    ``data``: the file's bytes, already read (else the file is read here)."""
     from ..ingest.match import FileRejected, ingest_file
 
     try:
-        return FileOutcome(raw, ingested=ingest_file(raw, register, layouts))
+        return FileOutcome(raw, ingested=ingest_file(raw, register, layouts, data))
     except FileRejected as err:
         return FileOutcome(raw, reason=str(err))
     finally:
         progress.step("read", raw.name)
 
 
+def read_inbox_file(ctx: Context, raw: RawFile) -> FileOutcome:
+    """Read a new inbox file once, and use it only if it still has the content it was listed with.
+
+    The bytes read are hashed: a file that vanished or whose SHA-256 is no longer ``raw.sha256``
+    comes back skipped (:class:`InboxSkip`), never raising.  Otherwise the same bytes are parsed
+    and kept in the archive at once (the raw copy of an ingested file, the quarantine copy of a
+    rejected one, written atomically unless already there), so no later step reads the inbox
+    file again and every copy is exactly what its hash names."""
+    import hashlib
+
+    rel = str(raw.path.relative_to(ctx.inbox)) if raw.path.is_relative_to(ctx.inbox) else raw.name
+    try:
+        data = raw.path.read_bytes()
+    except FileNotFoundError:
+        return FileOutcome(raw, skipped=InboxSkip(rel, "vanished"))
+    except OSError as err:
+        return FileOutcome(raw, skipped=InboxSkip(rel, "unreadable", err.strerror or type(err).__name__))
+    if hashlib.sha256(data).hexdigest() != raw.sha256:
+        return FileOutcome(raw, skipped=InboxSkip(rel, "changed", f"{raw.size} -> {len(data)} bytes"))
+    outcome = read_one_file(raw, ctx.register, ctx.layouts, data)
+    f = outcome.ingested
+    dest = (ctx.paths.raw_copy(f.station, f.deployment, raw.sha256, raw.name) if f is not None
+            else ctx.paths.quarantine(raw.sha256, raw.name))
+    if not dest.exists():
+        write_bytes_atomic(dest, data)
+    return outcome
+
+
 def quarantine_file(ctx: Context, outcome: FileOutcome) -> Path:
-    """Copy a rejected file and its reason to quarantine and record it in the catalog."""
+    """Copy a rejected file (unless :func:`read_inbox_file` kept it there already) and its reason to
+    quarantine, and record it in the catalog.  The copy must have the file's hash (SourceChanged if not)."""
     raw = outcome.raw
     dest = ctx.paths.quarantine(raw.sha256, raw.name)
-    copy_atomic(raw.path, dest)
+    if not dest.exists():
+        copy_atomic(raw.path, dest, sha256=raw.sha256)
     write_text_atomic(dest.with_name(dest.name + ".reason.txt"),
                       f"{outcome.reason}\nsha256: {raw.sha256}\noriginal path: {raw.path}\n")
     with ctx.catalog.transaction() as con:

@@ -31,8 +31,9 @@ from typing import Protocol
 from ..archive.lock import ArchiveLock
 from ..errors import ConfigError
 from ..report.model import Notice, Quarantined, RunSummary
+from ..report.summary import inbox_skip_text
 from .context import Context, load_context
-from .inbox import group_by_deployment, quarantine_file, read_one_file
+from .inbox import group_by_deployment, quarantine_file, read_inbox_file
 from .plan import QcPlan, Work, check_deployment_ids, pending_work, plan_qc
 
 
@@ -67,9 +68,9 @@ class Job:
 # --- the steps: each is one unit of work a runner may run anywhere --------------------------
 
 def read_raw_file(job: Job, raw):
-    """Read, match and time-correct one raw file (rejections come back with a reason)."""
-    ctx = job.context()
-    return read_one_file(raw, ctx.register, ctx.layouts)
+    """Read, match and time-correct one raw file (rejections come back with a reason; a file that
+    vanished or changed since it was listed comes back skipped)."""
+    return read_inbox_file(job.context(), raw)
 
 
 def quarantine(job: Job, outcome) -> str:
@@ -217,7 +218,10 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
         seen = work.inbox
         summary.files_seen, summary.files_known = seen["seen"], seen["known"]
         summary.repeated_in_inbox = seen["repeated_in_inbox"]
+        summary.skipped_in_inbox = [inbox_skip_text(s) for s in seen.get("skipped", [])]
         outcomes = [p.result() for p in [runner.submit("read-raw-file", job, raw) for raw in work.new_files]]
+        summary.skipped_in_inbox += [inbox_skip_text(o.skipped) for o in outcomes if o.skipped is not None]
+        outcomes = [o for o in outcomes if o.skipped is None]
         for o in outcomes:
             if o.ingested is None:
                 runner.submit("quarantine-file", job, o).result()

@@ -30,11 +30,14 @@ def summary_markdown(run: dict) -> str:
     results = run.get("results", [])
     lines = [f"# {title}", "",
              f"files: {int(run.get('files_seen', 0))} in the inbox, {int(run.get('ingested', 0))} ingested, "
-             f"{len(run.get('quarantined', []))} quarantined; {len(results)} dataset version(s), "
+             f"{len(run.get('quarantined', []))} quarantined, {len(run.get('skipped_in_inbox', []))} skipped this run; "
+             f"{len(results)} dataset version(s), "
              f"{sum(int(r.get('samples', 0)) for r in results)} samples", ""]
     for q in run.get("quarantined", []):
         lines.append(f"* quarantined {_cell(q.get('name'))}: {_cell(q.get('reason'))}")
-    if run.get("quarantined"):
+    for x in run.get("skipped_in_inbox", []):
+        lines.append(f"* skipped {_cell(x)}")
+    if run.get("quarantined") or run.get("skipped_in_inbox"):
         lines.append("")
     if results:
         lines.append("| station | deployment | variable | " + " | ".join(FLAG_WORDS[k] for k in FLAG_KEYS) + " |")

@@ -38,6 +38,7 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
       "ingested": 16,
       "quarantined": [{"name": "x.csv", "reason": "one line"}],
       "repeated_in_inbox": ["copy/of/x.csv"],          # repeated copies skipped
+      "skipped_in_inbox": ["x.csv: vanished ..."],     # files not used this run, one line each (optional)
       "results": [{                         # one per dataset version written
           "station": "kc-mid", "deployment": "kc-mid-temp-2026-09",
           "dataset": "/abs/path/qcpipe_..._v001.nc", "version": 1, "samples": 6039,
@@ -132,7 +133,8 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "outcome": outcome, "files_seen": int(summary.files_seen), "files_known": int(summary.files_known),
             "ingested": int(summary.ingested),
             "quarantined": [{"name": str(q.name), "reason": str(q.reason)} for q in summary.quarantined],
-            "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox], "results": results,
+            "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox],
+            "skipped_in_inbox": [str(x) for x in summary.skipped_in_inbox], "results": results,
             "notices": _notice_dicts(getattr(summary, "notices", [])),
             "reruns": {str(d): [str(w) for w in why] for d, why in getattr(summary, "reruns", {}).items()}}
 
@@ -454,6 +456,7 @@ def _this_run(run: dict, archive: _Archive, out_dir: Path) -> dict:
         ("files in the inbox", run.get("files_seen", 0)),
         ("already in the archive", run.get("files_known", 0)),
         ("repeated copies skipped", len(run.get("repeated_in_inbox", []))),
+        ("files skipped this run (vanished, changed, links out of the inbox)", len(run.get("skipped_in_inbox", []))),
         ("files ingested", run.get("ingested", 0)),
         ("files quarantined", len(run.get("quarantined", []))),
         ("dataset versions written", len(results)),
@@ -467,6 +470,7 @@ def _this_run(run: dict, archive: _Archive, out_dir: Path) -> dict:
                                                 for k, v in facts], numeric={1}),
            "quarantined": None, "quarantine_dir": None, "reruns": None, "conflicts": None,
            "repeated_in_inbox": [str(x) for x in run.get("repeated_in_inbox", [])],
+           "skipped_in_inbox": [str(x) for x in run.get("skipped_in_inbox", [])],
            "barometric": _barometric_table(results),
            "flags": _flag_table(results, link_station=True) if results else None}
     if run.get("quarantined"):

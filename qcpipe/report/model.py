@@ -25,6 +25,7 @@ NOTICE_KINDS = {
     "reading": "Raw file reading",
     "barometer": "Air pressure",
     "rerun": "Re-read",
+    "rules": "Check not evaluated",
     "run": "Run",
 }
 
@@ -88,6 +89,7 @@ class RunSummary:
     files_seen: int = 0
     files_known: int = 0
     repeated_in_inbox: list = field(default_factory=list)
+    skipped_in_inbox: list = field(default_factory=list)  # files not used this run (vanished, changed, links out)
     ingested: int = 0
     quarantined: list = field(default_factory=list)      # Quarantined
     results: list = field(default_factory=list)          # DatasetWritten
@@ -113,6 +115,7 @@ class RunSummary:
     def as_counts(self) -> dict:
         return {"files_seen": self.files_seen, "files_known": self.files_known, "ingested": self.ingested,
                 "quarantined": len(self.quarantined), "repeated_in_inbox": len(self.repeated_in_inbox),
+                "skipped_in_inbox": len(self.skipped_in_inbox),
                 "datasets_written": len(self.results), "samples": sum(r.samples for r in self.results),
                 "flags": self.totals()}
 

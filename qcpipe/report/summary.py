@@ -15,20 +15,43 @@ def air_pressure_words(a: dict) -> str:
             f"constant {a['constant_hpa']:.2f} hPa at {a['from_constant']} (flagged suspect by barometer_fallback)")
 
 
+#: why an inbox file was not used this run (``ingest.discover.InboxSkip.why``), and what happens next
+_SKIP_WORDS = {
+    "vanished": "vanished from the inbox after it was listed; skipped this run (read next run if it is back)",
+    "changed": "changed while this run was reading it ({detail}); skipped this run (read next run once it "
+               "stays unchanged)",
+    "unreadable": "could not be read ({detail}); skipped this run (check its permissions; read next run)",
+    "link_out": "is a link leading out of the inbox ({detail}); not read: links are followed only within "
+                "the inbox, so copy the file into the inbox",
+}
+
+
+def inbox_skip_text(skip) -> str:
+    """One line on an inbox file not used this run (an ``InboxSkip``)."""
+    detail = skip.detail or ("it leads nowhere" if skip.why == "link_out" else "")
+    return f"{skip.path}: " + _SKIP_WORDS[skip.why].format(detail=detail)
+
+
 def summary_lines(run: RunSummary) -> list[str]:
     """The terminal summary of a run, one string per line."""
     if run.nothing_new and run.kind == "rerun":
         return [f"nothing changed: every dataset in the archive {run.archive} was made from the current rules, "
                 "register, constants, annotations and software; nothing re-QC'd, nothing written "
                 "(to re-QC one anyway: qcpipe rerun -d DEPLOYMENT)"]
-    if run.nothing_new:
+    skipped = [f"  skipped {s}" for s in run.skipped_in_inbox]
+    if run.nothing_new and not skipped:
         return [f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
+    if run.nothing_new:
+        return [f"nothing new: {run.files_seen} file(s) in the inbox, {run.files_known} already in the archive "
+                f"{run.archive}, {len(skipped)} skipped this run", *skipped]
     out = [f"files: {run.files_seen} in inbox, {run.ingested} ingested, {len(run.quarantined)} quarantined, "
-           f"{run.files_known} already archived, {len(run.repeated_in_inbox)} repeated copies skipped"]
+           f"{run.files_known} already archived, {len(run.repeated_in_inbox)} repeated copies skipped, "
+           f"{len(skipped)} skipped this run"]
     for q in run.quarantined:
         out.append(f"  quarantined {q.name}: {q.reason}")
     for rep in run.repeated_in_inbox:
         out.append(f"  skipped repeated copy {rep}")
+    out += skipped
     for dep, why in run.reruns.items():
         out.append(f"  re-QC {dep}: " + "; ".join(why[:4]) + (f"; and {len(why) - 4} more" if len(why) > 4 else ""))
     samples = sum(r.samples for r in run.results)

@@ -81,6 +81,20 @@ def probe_finding_text(finding: str, figures: dict) -> str:
     raise ValueError(f"unknown probe finding {finding!r}")
 
 
+def _duration_words(seconds: float) -> str:
+    for unit, size in (("d", 86400), ("h", 3600), ("min", 60)):
+        if seconds >= size:
+            return f"{seconds / size:.3g} {unit}"
+    return f"{seconds:.3g} s"
+
+
+def window_longer_than_record_text(variable: str, check: str, window_s: float, span_s: float) -> str:
+    """A check that did not run because its window is longer than the record."""
+    return (f"{variable}: the {check} check was not evaluated (flag 2): its window, {_duration_words(window_s)}, "
+            f"is longer than the record, {_duration_words(span_s)} from first to last value; shorten the "
+            f"window in the rule set or wait for a longer record")
+
+
 def no_reference_text(why: str) -> str:
     """A probe checked against no tide: which checks did not run, and why."""
     return (f"no tide reference: {why}; the probe's clock check, sensor-height check and tide-consistency check "
