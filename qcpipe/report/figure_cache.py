@@ -9,8 +9,8 @@ identified by the SHA-256 of:
 - every argument: arrays by dtype, shape and bytes, anything else by its ``repr``.
 
 so a stored PNG is used only for exactly the call that made it.  PNGs live in
-``<archive>/reports/.figure-cache/<sha256>.png``, written atomically (concurrent workers drawing
-the same figure write the same bytes); a hit refreshes the file's modification time, and
+``<archive>/reports/.figure-cache/<sha256>.png``, written by temporary file and rename (concurrent
+workers drawing the same figure write the same bytes); a hit refreshes the file's modification time, and
 :meth:`FigureCache.prune` removes entries not used for ``max_age_days``.  ``FigureCache(None)``
 draws every figure and keeps nothing.
 """
@@ -21,14 +21,13 @@ import hashlib
 import inspect
 import os
 import struct
+import tempfile
 import time
 from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 
-from ..errors import ArchiveError
-from ..files import atomic_path
 from . import plots
 
 #: the cache's folder inside ``<archive>/reports``
@@ -68,6 +67,25 @@ def png_size(png: bytes) -> tuple[int, int]:
     return struct.unpack(">II", png[16:24])
 
 
+def _keep(path: Path, data: bytes) -> None:
+    """Write a cache entry by temporary file and rename.  Not an archive file: no fsync and no crash point
+    (a lost entry is drawn again), and a full or read-only disk costs the next report a redraw, nothing more."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    except OSError:
+        return
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except OSError:
+        pass
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
 class FigureCache:
     """PNG bytes of report figures, drawn on the first request and read back afterwards."""
 
@@ -91,11 +109,7 @@ class FigureCache:
         data = plots.png_bytes(func(*args, **kwargs))
         self.drawn += 1
         if path is not None:
-            try:
-                with atomic_path(path) as tmp:
-                    tmp.write_bytes(data)
-            except ArchiveError:        # a full or read-only disk costs the next report a redraw, nothing more
-                pass
+            _keep(path, data)
         return data
 
     def prune(self, max_age_days: float = 30.0) -> int:
