@@ -61,12 +61,13 @@ from __future__ import annotations
 
 import contextlib
 import os
-import socket
 import subprocess
 import sys
 import time
 import urllib.request
 from pathlib import Path
+
+from .embedded_server import free_port, is_embedded, stop_process
 
 
 def task_runner_for(dask_address: str | None):
@@ -75,7 +76,7 @@ def task_runner_for(dask_address: str | None):
         return None
     from prefect.settings import PREFECT_API_URL
 
-    if not PREFECT_API_URL.value():
+    if not PREFECT_API_URL.value() or is_embedded(PREFECT_API_URL.value()):
         from qcpipe.errors import ConfigError
 
         raise ConfigError(f"Dask cluster {dask_address}: its workers need a Prefect server to report to, and "
@@ -116,13 +117,6 @@ def env_for_workers(api_url: str | None = None) -> dict[str, str]:
     return env
 
 
-def free_port(host: str = "127.0.0.1") -> int:
-    """A TCP port that was free on ``host`` a moment ago."""
-    with socket.socket() as s:
-        s.bind((host, 0))
-        return s.getsockname()[1]
-
-
 @contextlib.contextmanager
 def local_prefect_server(home: str | Path, *, port: int | None = None, timeout_s: float = 180.0,
                          log: str | Path | None = None):
@@ -161,11 +155,5 @@ def local_prefect_server(home: str | Path, *, port: int | None = None, timeout_s
             time.sleep(0.25)
         yield url
     finally:
-        if proc.poll() is None:
-            proc.terminate()
-            try:
-                proc.wait(20)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait(10)
+        stop_process(proc, 20)
         out.close()

@@ -175,8 +175,23 @@ def _where(args) -> str:
 
     if args.dask:
         return f"Dask cluster {args.dask}"
+    from .flows.embedded_server import is_embedded
+
     url = os.environ.get("PREFECT_API_URL")
-    return f"Prefect server {url}" if url else "Prefect, local mode"
+    return f"Prefect server {url}" if url and not is_embedded(url) else "Prefect, local mode"
+
+
+def _start_orchestrator(args) -> None:
+    """The run's embedded orchestrator server, tied to this process, so a killed run leaves none behind
+    (``flows/embedded_server.py``).  Before the orchestrator is imported (it reads its settings then).
+    None when PREFECT_API_URL is set, nor for a Dask cluster (it needs a server of the user's own: the
+    flow says so in one line)."""
+    import os
+
+    from .flows.embedded_server import start_embedded_server
+
+    if not args.dask:
+        start_embedded_server(os.environ["PREFECT_HOME"])
 
 
 def _without_orchestrator(args, deployments=None, kind="nightly"):
@@ -242,11 +257,12 @@ def _process(args) -> int:
         _print_summary(idle, args.quiet)
         return 0
     ws = _prepare_flow(args)
+    if not args.quiet:
+        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} ({_where(args)})", flush=True)
+    _start_orchestrator(args)
     from .flows.nightly import nightly_flow_for
 
     flow = nightly_flow_for(args.dask)
-    if not args.quiet:
-        print(f"qcpipe: processing inbox {ws.inbox} -> archive {ws.archive} ({_where(args)})", flush=True)
     _print_summary(_run_with_progress(args, flow, str(ws.path), args.dask), args.quiet)
     return 0
 
@@ -257,11 +273,12 @@ def _rerun(args) -> int:
         _print_summary(idle, args.quiet)
         return 0
     ws = _prepare_flow(args)
+    if not args.quiet:
+        print(f"qcpipe: re-running QC in archive {ws.archive} ({_where(args)})", flush=True)
+    _start_orchestrator(args)
     from .flows.rerun import rerun_flow_for
 
     flow = rerun_flow_for(args.dask)
-    if not args.quiet:
-        print(f"qcpipe: re-running QC in archive {ws.archive} ({_where(args)})", flush=True)
     _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask), args.quiet)
     return 0
 
@@ -289,9 +306,10 @@ def _apply_clock(args) -> int:
     if args.register_only:
         print("qcpipe: run 'qcpipe rerun' to read their raw files again with the correction")
         return 0
+    load_context(ws.path)             # the edited register is valid before the orchestrator starts
+    _start_orchestrator(args)
     from .flows.rerun import rerun_flow_for
 
-    load_context(ws.path)             # the edited register is valid before the orchestrator starts
     flow = rerun_flow_for(args.dask)
     _print_summary(_run_with_progress(args, flow, str(ws.path), plan.deployments, args.dask), args.quiet)
     return 0

@@ -1,0 +1,112 @@
+"""What a killed run leaves behind: no orchestrator process, and no notice that no one reads.
+
+``test_no_orchestrator_outlives_a_killed_command`` needs the real command: only ``qcpipe
+process`` starts the orchestrator's embedded server (``flows/embedded_server.py``), and it is
+that server a SIGKILL of the command used to leave running for minutes.  The notices test runs
+the sequence without the orchestrator (``nightly_in_process.py``), killed at a crash point.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+
+from tests.conftest import copy_demo
+
+#: "no orchestrator process outlives a killed run by more than a few seconds" (issue 18, section 4)
+SURVIVAL_LIMIT_S = 5.0
+
+
+def _processes() -> dict[int, tuple[int, int, str, str]]:
+    """Every process on this machine: pid -> (parent pid, process group, state letter, command line)."""
+    out = {}
+    for d in Path("/proc").iterdir():
+        if not d.name.isdigit():
+            continue
+        try:
+            stat = (d / "stat").read_text()
+            cmd = (d / "cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace").strip()
+        except OSError:
+            continue
+        fields = stat[stat.rindex(")") + 2:].split()          # after "pid (comm) "
+        out[int(d.name)] = (int(fields[1]), int(fields[2]), fields[0], cmd)
+    return out
+
+
+def _descendants(pid: int, procs: dict) -> list[int]:
+    children = [p for p, (ppid, *_rest) in procs.items() if ppid == pid]
+    return children + [d for c in children for d in _descendants(c, procs)]
+
+
+def _living(pids, procs: dict) -> list[int]:
+    """The ``pids`` still running (a zombie has ended: it only waits to be reaped)."""
+    return [p for p in pids if p in procs and procs[p][2] != "Z"]
+
+
+def _healthy(cmdline: str) -> bool:
+    """Whether the orchestrator's server with this command line (uvicorn's arguments) answers on its port."""
+    args = cmdline.split()
+    port = args[args.index("--port") + 1]
+    try:
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/health", timeout=2) as r:
+            return r.status == 200
+    except OSError:
+        return False
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_no_orchestrator_outlives_a_killed_command(tmp_path):
+    """SIGKILL of ``qcpipe process`` once its orchestrator server answers: within SURVIVAL_LIMIT_S no
+    process the command started (its whole process tree, found by parent ids before the kill, and
+    anything left in its process group) is still running.  Before the server was tied to the run,
+    Prefect's own embedded server (``python -m uvicorn ... prefect.server.api.server:create_app``)
+    was left running after this kill; the server is found by that application's name in its command
+    line, whoever starts it."""
+    ws = copy_demo(tmp_path)
+    env = {k: v for k, v in os.environ.items() if k not in ("PREFECT_API_URL", "PREFECT_HOME")}
+    with open(tmp_path / "run.log", "w") as log:
+        proc = subprocess.Popen([sys.executable, "-m", "qcpipe.cli", "process", "-w", str(ws), "-q"],
+                                stdout=log, stderr=subprocess.STDOUT, env=env, start_new_session=True)
+    tree: list[int] = []
+    try:
+        deadline = time.monotonic() + 300
+        server = None
+        while server is None:
+            assert proc.poll() is None, f"the run ended before its server was up: {(tmp_path / 'run.log').read_text()}"
+            assert time.monotonic() < deadline, "no orchestrator server answered within 300 s"
+            procs = _processes()
+            found = [p for p in _descendants(proc.pid, procs)
+                     if "prefect.server.api.server:create_app" in procs[p][3]]
+            if found and _healthy(procs[found[0]][3]):
+                server = found[0]
+            else:
+                time.sleep(0.2)
+        tree = _descendants(proc.pid, _processes())
+        assert server in tree
+        os.kill(proc.pid, signal.SIGKILL)
+        killed = time.monotonic()
+        assert proc.wait(30) == -signal.SIGKILL
+        while True:
+            procs = _processes()
+            left = _living(tree, procs) + [p for p, (_pp, pgid, state, _c) in procs.items()
+                                           if pgid == proc.pid and state != "Z" and p not in tree]
+            if not left or time.monotonic() - killed > SURVIVAL_LIMIT_S:
+                break
+            time.sleep(0.1)
+        took = time.monotonic() - killed
+        assert not left, (f"still running {took:.1f} s after the run was killed: "
+                          + "; ".join(f"{p}: {procs[p][3][:120]}" for p in left))
+    finally:
+        for p in [proc.pid, *tree]:               # a failing test leaves nothing behind either
+            try:
+                os.kill(p, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
+        proc.wait(30)
