@@ -9,6 +9,7 @@
     qcpipe lineage   --workspace W D    which raw files, rules and code made a deployment's dataset
     qcpipe audit     --workspace W      catalog accounting and SHA-256 fixity of the whole archive
     qcpipe package   --workspace W      BagIt archive packages per station and deployment
+    qcpipe report    --workspace W --out DIR   a run report with the files it links, to open anywhere
     qcpipe schedule  --workspace W      serve the nightly flow on a cron schedule (needs a Prefect server)
     qcpipe inspect   --workspace W      a local web page to look at flags, mark periods and re-run QC
 
@@ -41,6 +42,7 @@ EXAMPLES = {
     "audit": f"qcpipe audit --workspace {DEMO_WORKSPACE}",
     "package": f"qcpipe package --workspace {DEMO_WORKSPACE} -d kc-mid-temp-2026-09 --out bags",
     "check": f"qcpipe check --workspace {DEMO_WORKSPACE}",
+    "report": f"qcpipe report --workspace {DEMO_WORKSPACE} --out report-copy",
     "inspect": f"qcpipe inspect --workspace {DEMO_WORKSPACE}",
     "schedule": f"qcpipe schedule --workspace {DEMO_WORKSPACE} --cron \"0 2 * * *\"",
 }
@@ -74,7 +76,10 @@ def _parser() -> argparse.ArgumentParser:
 
     sp = sub.add_parser("rerun", help="re-QC from stored data what changed, or the given deployments")
     ws(sp)
-    sp.add_argument("-d", "--deployment", action="append", help="re-QC this deployment (repeatable)")
+    sp.add_argument("-d", "--deployment", action="append", help="re-QC this deployment (repeatable); one whose "
+                    "latest dataset was made from its current inputs is left as it is (says 'nothing changed')")
+    sp.add_argument("--even-if-unchanged", action="store_true", help="with -d: write a new version even when "
+                    "nothing it is made from changed")
     sp.add_argument("--dask", metavar="ADDRESS", help="spread the work over this Dask cluster (needs PREFECT_API_URL)")
     sp.add_argument("-q", "--quiet", action="store_true", help="print only the one-line outcome")
     sp.add_argument("-v", "--verbose", action="store_true", help="also show the orchestrator's info logs")
@@ -115,6 +120,12 @@ def _parser() -> argparse.ArgumentParser:
     ws(sp)
     sp.add_argument("-d", "--deployment", action="append", help="only this deployment (repeatable)")
     sp.add_argument("-o", "--out", help="folder for the bags (default: <archive>/packages)")
+
+    sp = sub.add_parser("report", help="copy a run report and the datasets, products and conflicts files it "
+                        "links into a folder outside the archive, so it opens anywhere")
+    ws(sp)
+    sp.add_argument("-o", "--out", required=True, help="folder for the copy (outside the archive)")
+    sp.add_argument("--run", type=int, metavar="ID", help="the run whose report to copy (default: the newest)")
 
     sp = sub.add_parser("check", help="validate configuration without processing anything")
     ws(sp)
@@ -194,7 +205,7 @@ def _start_orchestrator(args) -> None:
         start_embedded_server(os.environ["PREFECT_HOME"])
 
 
-def _without_orchestrator(args, deployments=None, kind="nightly"):
+def _without_orchestrator(args, deployments=None, kind="nightly", even_if_unchanged=False):
     """The run's summary when it has nothing to do (recorded, no orchestrator started); None when it has work.
 
     Imports no orchestrator and none of the QC's libraries (``python -X importtime``; the test
@@ -202,7 +213,7 @@ def _without_orchestrator(args, deployments=None, kind="nightly"):
     from .pipeline.run import run_if_nothing_to_do
 
     ctx = _take_archive(args)
-    summary = run_if_nothing_to_do(ctx, deployments, kind=kind)
+    summary = run_if_nothing_to_do(ctx, deployments, kind=kind, even_if_unchanged=even_if_unchanged)
     if summary is not None and not args.quiet:
         what = (f"processing inbox {ctx.inbox} -> archive {ctx.paths.root}" if kind == "nightly" else
                 f"re-running QC in archive {ctx.paths.root}")
@@ -268,7 +279,9 @@ def _process(args) -> int:
 
 
 def _rerun(args) -> int:
-    idle = _without_orchestrator(args, args.deployment, kind="rerun")
+    if args.even_if_unchanged and not args.deployment:
+        raise QcpipeError("--even-if-unchanged needs the deployments to re-QC: add -d DEPLOYMENT")
+    idle = _without_orchestrator(args, args.deployment, kind="rerun", even_if_unchanged=args.even_if_unchanged)
     if idle is not None:
         _print_summary(idle, args.quiet)
         return 0
@@ -279,7 +292,8 @@ def _rerun(args) -> int:
     from .flows.rerun import rerun_flow_for
 
     flow = rerun_flow_for(args.dask)
-    _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask), args.quiet)
+    _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask,
+                                      args.even_if_unchanged), args.quiet)
     return 0
 
 
@@ -426,6 +440,16 @@ def _package(args) -> int:
     return 0
 
 
+def _report(args) -> int:
+    from .config import load_workspace
+    from .report.export import export_report
+
+    ws = load_workspace(args.workspace)
+    index, written = export_report(ws.archive, Path(args.out), args.run)
+    print(f"report: {len(written)} file(s) copied into {Path(args.out).resolve()}; open {index}")
+    return 0
+
+
 def _holdings(args) -> int:
     from .archive.catalog import Catalog
     from .checks.flags import FLAG_WORDS
@@ -562,7 +586,7 @@ def _main(argv: list[str] | None) -> int:
         raise
     handler = {"process": _process, "holdings": _holdings, "check": _check, "schedule": _schedule,
                "rerun": _rerun, "diff": _diff, "lineage": _lineage, "audit": _audit,
-               "package": _package, "apply-clock": _apply_clock, "inspect": _inspect}[args.command]
+               "package": _package, "report": _report, "apply-clock": _apply_clock, "inspect": _inspect}[args.command]
     try:
         return handler(args)
     except QcpipeError as err:

@@ -111,26 +111,27 @@ def run_cli(*args, cwd=None, env=None):
 
 
 def run_sequence(command: str, workspace, *, deployments: list[str] | None = None,
-                 quiet: bool = False) -> subprocess.CompletedProcess:
+                 quiet: bool = False, even_if_unchanged: bool = False) -> subprocess.CompletedProcess:
     """``qcpipe process`` (``command`` "process") or ``qcpipe rerun`` without the orchestrator.
 
     The same run sequence the commands' flows wrap (``qcpipe.pipeline.run.nightly_run`` / ``rerun``),
     each step called at once in this process (``InProcess``), so no orchestrator start (15-20 s) is
     paid.  Returns what the command gives: exit status 0 with the summary's lines on stdout (the
-    first one alone with ``quiet``; then the report's path), or 2 with the error's one line on
+    first one alone with ``quiet``; then the report's path; ``even_if_unchanged`` as the option), or 2 with the error's one line on
     stderr for an expected failure (a QcpipeError)."""
     from qcpipe.errors import QcpipeError
     from qcpipe.pipeline import load_context
     from qcpipe.pipeline.run import InProcess, nightly_run, rerun
     from qcpipe.report.summary import summary_lines
 
-    args = [command, "--workspace", str(workspace), *(["-q"] if quiet else [])]
+    args = [command, "--workspace", str(workspace), *(["-q"] if quiet else []),
+            *(["--even-if-unchanged"] if even_if_unchanged else [])]
     try:
         ctx = load_context(workspace)
         if command == "process":
             summary = nightly_run(ctx, InProcess())
         else:
-            summary = rerun(ctx, InProcess(), deployments or None)
+            summary = rerun(ctx, InProcess(), deployments or None, even_if_unchanged=even_if_unchanged)
     except QcpipeError as err:
         return subprocess.CompletedProcess(args, 2, "", f"qcpipe: error: {err}\n")
     lines = summary_lines(summary)[:1] if quiet else summary_lines(summary)

@@ -196,7 +196,7 @@ def test_rerun_with_nothing_changed_says_nothing_changed(demo):
 # --- help ---------------------------------------------------------------------------------------------
 
 COMMANDS = ["process", "holdings", "rerun", "apply-clock", "diff", "lineage", "audit", "package", "check",
-            "inspect", "schedule"]
+            "inspect", "schedule", "report"]
 
 
 @pytest.mark.parametrize("command", COMMANDS)

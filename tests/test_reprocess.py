@@ -180,14 +180,14 @@ def test_rerun_command_reprocesses_dependents(work):
     """The suite's re-run through the real command and flow (an orchestrator start, 15-20 s): the
     re-run flow's tasks in their dependency order; the later re-runs without the orchestrator."""
     before = versions(work)
-    r = run_cli("rerun", "--workspace", ws(work), "--deployment", "kc-pier-level-2026-09")
+    r = run_cli("rerun", "--workspace", ws(work), "--deployment", "kc-pier-level-2026-09", "--even-if-unchanged")
     assert r.returncode == 0, r.stderr
     after = versions(work)
     changed = {d for d in after if after[d] != before[d]}
     # a new gauge record changes the reference level of every probe, and so every station; the
     # site's barometer is upstream of the gauge (the gauge subtracts its air pressure), not a dependent
     assert changed == set(after) - {"kc-deck-baro-2026-09"}
-    r = run_sequence("rerun", ws(work), deployments=["kc-deck-baro-2026-09"], quiet=True)
+    r = run_sequence("rerun", ws(work), deployments=["kc-deck-baro-2026-09"], quiet=True, even_if_unchanged=True)
     assert r.returncode == 0, r.stderr
     again = versions(work)
     # a new barometer record changes the gauge's air pressure, and so everything the gauge feeds

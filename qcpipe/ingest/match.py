@@ -171,6 +171,8 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
     if counts["out_of_order"]:
         keep = keep[np.argsort(ti, kind="stable")]
     provenance = file_provenance(table)
+    if counts["out_of_order"]:
+        provenance["out_of_order"] = counts["out_of_order"]
     note = offset_note(table, dep)
     notes = [note] if note else []
     if note:

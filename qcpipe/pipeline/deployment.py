@@ -20,7 +20,8 @@ from ..files import atomic_path, copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
 from ..apply_rules import apply_rule_set, flag_counts, unevaluated_checks
 from ..report.words import (clock_correction_text, clock_verdict_text, companion_clock_text, elevation_text,
-                            no_reference_text, probe_finding_text, window_longer_than_record_text)
+                            no_reference_text, probe_finding_text, reading_counts_texts,
+                            window_longer_than_record_text)
 from ..report.model import DatasetWritten, Notice
 from ..probe_analysis import analyse_probe
 from ..tide.companion import shares_error, step_lag
@@ -101,7 +102,8 @@ def convert(ctx: Context, deployment_id: str, store: Store, new_files) -> Prepar
         if raw in store.conflict and var_out in conv.variables:
             conflicts[var_out] = store.conflict[raw]
     qc_vars = {k: v for k, v in conv.variables.items() if k != "probe_reading"}
-    notices = [Notice("reading", n, station.id, dep.id) for f in new_files for n in f.notes]
+    notices = [Notice("reading", n, station.id, dep.id) for f in new_files
+               for n in [*f.notes, *reading_counts_texts(f.raw.name, f.counts)]]
     return Prepared(dep, station, reg.site_by_id(station.site), store, conv, qc_vars, conflicts, notices=notices,
                     qc_key=lineage.qc_key(ctx, dep.id), qc_inputs=lineage.qc_inputs(ctx, dep.id))
 
@@ -220,7 +222,10 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
     prev = cat.latest_dataset(dep.id)
     version = 1 if prev is None else prev["version"] + 1
     history = (f"{now} qcpipe {__version__}: {len(store.sources)} raw file(s) merged ({counts.get('duplicates', 0)} "
-               f"repeated records dropped, {counts.get('conflicts', 0)} conflicts kept and flagged), converted, QC "
+               f"repeated records dropped, {counts.get('conflicts', 0)} conflicting timestamps kept and flagged, "
+               f"{counts.get('pre_deployment', 0)} pre-deployment and {counts.get('post_recovery', 0)} post-recovery "
+               f"samples trimmed, {counts.get('truncated_last_line', 0)} truncated last line(s) not read, "
+               f"{counts.get('out_of_order', 0)} record(s) out of time order sorted), converted, QC "
                f"with rule set {ctx.rules.name} sha256:{ctx.rules.sha256[:12]}")
     correction_attrs, correction_text = clock_correction_record(dep)
     if correction_text:
@@ -235,6 +240,8 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
                                        samples_removed_pre_deployment_total=counts.get("pre_deployment", 0),
                                        samples_removed_post_recovery_total=counts.get("post_recovery", 0),
                                        download_conflicts=counts.get("conflicts", 0),
+                                       truncated_last_lines_total=counts.get("truncated_last_line", 0),
+                                       records_out_of_time_order_total=counts.get("out_of_order", 0),
                                        raw_file_reading=json.dumps(store.file_provenance, sort_keys=True),
                                        **correction_attrs))
     provenance["extra_attrs"]["qc_inputs_sha256"] = p.qc_key

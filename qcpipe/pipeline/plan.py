@@ -8,6 +8,7 @@ imports nothing heavy (no xarray, pandas or orchestrator), so asking is quick.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 from .. import lineage, progress
 from ..archive.ncio import read_attrs
@@ -54,6 +55,7 @@ class QcPlan:
     stations: dict[str, list[str]]
     sites: list[str]
     barometers: list[str] = field(default_factory=list)
+    causes: dict[str, list[str]] = field(default_factory=dict)   # deployments QC'd as dependents: why
 
 
 def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
@@ -67,21 +69,35 @@ def plan_qc(ctx: Context, touched: set[str]) -> QcPlan:
     reg = ctx.register
     have_store = {d.id for d in reg.deployment if ctx.paths.ingested(d.station, d.id).exists()} | set(touched)
     todo = set(touched)
+    causes: dict[str, list[str]] = {}
+
+    def depend(deployment: str, why: str) -> None:
+        todo.add(deployment)
+        if deployment not in touched and why not in causes.get(deployment, []):
+            causes.setdefault(deployment, []).append(why)
+
     site_of = {d.id: reg.station_by_id(d.station).site for d in reg.deployment}
     barometers = sorted(d for d in todo if ctx.register.kind_of(d) == "barometer")
-    todo |= {d for d in have_store if set(lineage.barometers_for(reg, d)) & set(barometers)}
-    new_gauge_sites = {site_of[d] for d in todo if ctx.register.kind_of(d) == "pressure"}
-    todo |= {d for d in have_store if ctx.register.kind_of(d) not in ("pressure", "barometer")
-             and site_of[d] in new_gauge_sites}
-    new_probe_stations = {reg.deployment_by_id(d).station for d in todo if ctx.register.kind_of(d) == "immersion_probe"}
-    todo |= {d for d in have_store if reg.deployment_by_id(d).station in new_probe_stations}
+    for d in sorted(have_store):
+        for b in sorted(set(lineage.barometers_for(reg, d)) & set(barometers)):
+            depend(d, f"barometer {b} is QC'd in this run (its air pressure is subtracted)")
+    gauges = sorted(d for d in todo if ctx.register.kind_of(d) == "pressure")
+    for d in sorted(have_store):
+        if ctx.register.kind_of(d) not in ("pressure", "barometer"):
+            for g in (g for g in gauges if site_of[g] == site_of[d]):
+                depend(d, f"gauge {g} at site {site_of[d]} is QC'd in this run (the site's tide reference)")
+    probes = sorted(d for d in todo if ctx.register.kind_of(d) == "immersion_probe")
+    for d in sorted(have_store):
+        for p in (p for p in probes if p != d and reg.deployment_by_id(p).station == reg.deployment_by_id(d).station):
+            depend(d, f"immersion probe {p} of the station is QC'd in this run (the station's immersion state)")
     order = {"pressure": 0, "immersion_probe": 1}
     gauges = sorted(d for d in todo if ctx.register.kind_of(d) == "pressure")
     stations: dict[str, list[str]] = {}
     for d in sorted(todo - set(gauges) - set(barometers), key=lambda d: (order.get(ctx.register.kind_of(d), 2), d)):
         stations.setdefault(reg.deployment_by_id(d).station, []).append(d)
     progress.expect("qc", len(todo))
-    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}), barometers)
+    return QcPlan(gauges, dict(sorted(stations.items())), sorted({site_of[d] for d in todo}), barometers,
+                  {d: causes[d] for d in sorted(causes)})
 
 
 
@@ -94,6 +110,21 @@ def check_deployment_ids(ctx: Context, ids) -> None:
             raise ConfigError(f"{ctx.register.path}: no deployment {d!r}; see 'qcpipe holdings' for the ids")
         if not ctx.paths.ingested(known[d].station, d).exists():
             raise ConfigError(f"deployment {d!r} has no stored data in {ctx.paths.root}; run 'qcpipe process' first")
+
+
+def unchanged_since_latest(ctx: Context, deployment_id: str) -> bool:
+    """Whether a deployment's latest dataset was made from exactly what a re-QC would use now: its file is
+    there, its QC key is the current one and its raw files are those of the pre-QC store."""
+    latest = ctx.catalog.latest_dataset(deployment_id)
+    dep = ctx.register.deployment_by_id(deployment_id)
+    store = ctx.paths.ingested(dep.station, dep.id)
+    if latest is None or not store.exists() or not Path(latest["path"]).exists():
+        return False
+    if latest.get("qc_key") != lineage.qc_key(ctx, deployment_id):
+        return False
+    if read_attrs(store).get("ingest_key", "") != lineage.ingest_key(ctx, deployment_id):
+        return False
+    return list(latest.get("raw_sha256") or []) == str(read_attrs(store).get("source_sha256", "")).split()
 
 
 def stale_deployments(ctx: Context) -> dict[str, list[str]]:

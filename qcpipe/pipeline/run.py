@@ -34,7 +34,7 @@ from ..report.model import Notice, Quarantined, RunSummary
 from ..report.summary import inbox_skip_text
 from .context import Context, load_context
 from .inbox import group_by_deployment, quarantine_file, read_inbox_file
-from .plan import QcPlan, Work, check_deployment_ids, pending_work, plan_qc
+from .plan import QcPlan, Work, check_deployment_ids, pending_work, plan_qc, unchanged_since_latest
 
 
 def context_fingerprint(ctx: Context) -> str:
@@ -183,26 +183,31 @@ class InProcess:
 # --- the sequence --------------------------------------------------------------------------
 
 def run_if_nothing_to_do(ctx: Context, deployments: list[str] | None = None, *,
-                         kind: str = "nightly") -> RunSummary | None:
+                         kind: str = "nightly", even_if_unchanged: bool = False) -> RunSummary | None:
     """The run (``kind`` "nightly" or "rerun"), here and at once, when it has nothing to do; None when it
     has work (then run it on the orchestrator's runner).
 
     Decided by :func:`plan.pending_work`, the run's own decision, and recorded in the catalog
-    like any run, all under the archive's lock.  A re-run asked for deployments always has work.
+    like any run, all under the archive's lock.  A re-run asked for deployments has work unless each
+    of them is unchanged since its latest dataset (and ``even_if_unchanged`` is not given).
     When deciding fails (a missing inbox, say), the run here asks again and records its failure
     before the error goes on, as a run on the orchestrator does."""
-    if deployments:
+    if deployments and even_if_unchanged:
         return None
     with ArchiveLock(ctx.paths.root):
         try:
             work = pending_work(ctx, inbox=kind == "nightly")
+            if deployments:
+                check_deployment_ids(ctx, deployments)
+                if not all(unchanged_since_latest(ctx, d) for d in deployments):
+                    return None
         except Exception:  # noqa: BLE001 - the run below meets it again and records it
             work = None
         if work is not None and not work.nothing:
             return None
         if kind == "nightly":
             return nightly_run(ctx, InProcess(), work)
-        return rerun(ctx, InProcess(), work=work)
+        return rerun(ctx, InProcess(), deployments, work=work)
 
 
 def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSummary:
@@ -227,6 +232,8 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
                 runner.submit("quarantine-file", job, o).result()
                 summary.quarantined.append(Quarantined(o.raw.name, o.reason))
         by_dep = group_by_deployment([o.ingested for o in outcomes if o.ingested is not None])
+        for d, files in by_dep.items():
+            summary.reruns[d] = [new_data_cause(files)]
         for p in [runner.submit("merge-deployment", job, d, files) for d, files in by_dep.items()]:
             p.result()
         touched = set(by_dep) | refresh_inputs(ctx, runner, summary, work, exclude=set(by_dep))
@@ -239,10 +246,18 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
     return summary
 
 
+def new_data_cause(files) -> str:
+    """Why a deployment is QC'd in a nightly run: the raw files it received."""
+    return f"new raw data: {len(files)} file(s) ({', '.join(sorted({f.raw.name for f in files}))})"
+
+
 def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None, work: Work | None = None,
-          ) -> RunSummary:
+          *, even_if_unchanged: bool = False) -> RunSummary:
     """Re-QC what changed (or the given deployments and their dependents) from the archive's stored data.
 
+    A deployment asked for whose latest dataset was made from exactly its current inputs
+    (:func:`plan.unchanged_since_latest`) is not re-QC'd, unless ``even_if_unchanged``: it is listed
+    in ``summary.unchanged`` instead.
     ``work``: what :func:`plan.pending_work` found under the lock this run holds (default: asked here)."""
     run_id = ctx.catalog.start_run("rerun")
     summary = RunSummary(archive=str(ctx.paths.root), kind="rerun")
@@ -252,8 +267,15 @@ def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None, wo
         if deployments:
             check_deployment_ids(ctx, deployments)
             for d in deployments:
-                summary.reruns.setdefault(d, []).append("asked for")
-            touched |= set(deployments)
+                if d in touched:
+                    summary.reruns.setdefault(d, []).append("asked for")
+                elif even_if_unchanged or not unchanged_since_latest(ctx, d):
+                    summary.reruns.setdefault(d, []).append(
+                        "asked for with --even-if-unchanged (no input changed)" if even_if_unchanged else
+                        "asked for (its latest dataset file is missing or its store differs)")
+                    touched.add(d)
+                elif d not in summary.unchanged:
+                    summary.unchanged.append(d)
         run_plan(ctx, runner, plan_qc(ctx, touched), {}, summary, run_id)
         outcome = "nothing new" if summary.nothing_new else "completed"
     finally:
@@ -287,6 +309,8 @@ def run_plan(ctx: Context, runner: Runner, plan: QcPlan, by_dep: dict, summary: 
         return                         # nothing to QC (and no tide reference to load)
     from .references import site_tide
 
+    for d, why in plan.causes.items():
+        summary.reruns.setdefault(d, []).extend(why)
     job = Job.of(ctx, run_id)
     site_of = {d.id: ctx.register.station_by_id(d.station).site for d in ctx.register.deployment}
     for p in [runner.submit("qc-barometer", job, d, by_dep.get(d, [])) for d in plan.barometers]:

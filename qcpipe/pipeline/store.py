@@ -17,6 +17,7 @@ from ..files import write_text_atomic
 from ..ingest import FileRejected, IngestedFile, RawFile
 from ..ingest.timebase import merge_records
 from ..report.model import Notice
+from ..report.words import conflicts_dropped_text
 from .context import Context
 from .inbox import read_one_file
 
@@ -74,8 +75,10 @@ def write_store(ctx: Context, station_id: str, store: Store) -> None:
     write_dataset_atomic(ds, ctx.paths.ingested(station_id, store.deployment), enc)
 
 
-def _conflict_csv(path: Path, rows: list[dict], names: list[str]) -> None:
-    old = path.read_text(encoding="utf-8").splitlines()[1:] if path.exists() else []
+def _conflict_csv(path: Path, rows: list[dict], names: list[str], *, fresh: bool = False) -> None:
+    """Add the merge's conflict rows to the deployment's conflicts file (``fresh``: the file is written anew,
+    for a store built again from all its raw files)."""
+    old = path.read_text(encoding="utf-8").splitlines()[1:] if path.exists() and not fresh else []
     lines = list(old)
     for r in rows:
         s = io.StringIO()
@@ -87,7 +90,9 @@ def _conflict_csv(path: Path, rows: list[dict], names: list[str]) -> None:
     write_text_atomic(path, header + "".join(ln + "\n" for ln in lines))
 
 
-COUNT_KEYS = ("records", "pre_deployment", "post_recovery", "truncated_last_line")
+#: ingest counts summed over a deployment's raw files: records read, samples trimmed outside the deployment
+#: window, truncated last lines not read, records out of time order (sorted)
+COUNT_KEYS = ("records", "pre_deployment", "post_recovery", "truncated_last_line", "out_of_order")
 
 
 def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile], *, fresh: bool = False) -> Store:
@@ -134,13 +139,19 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
     merged = merge_records(np.concatenate(times), {k: np.concatenate(v) for k, v in vals.items()},
                            np.concatenate(srcs), conflict={k: np.concatenate(v) for k, v in prior.items()})
     counts["duplicates"] = counts.get("duplicates", 0) + merged.duplicates
-    counts["conflicts"] = int(max((np.count_nonzero(m) for m in merged.conflict.values()), default=0))
+    counts["conflicts"] = conflicting_timestamps(merged.conflict)
     store = Store(dep.id, kind, merged.time, merged.values, units, merged.conflict, merged.source, sources, names,
                   counts, drift, lineage.ingest_key(ctx, dep.id), file_provenance)
     write_store(ctx, dep.station, store)
-    if merged.conflict_rows:
-        _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names)
+    if merged.conflict_rows or (fresh and ctx.paths.conflicts(dep.id).exists()):
+        _conflict_csv(ctx.paths.conflicts(dep.id), merged.conflict_rows, names, fresh=fresh)
     return store
+
+
+def conflicting_timestamps(conflict: dict[str, np.ndarray]) -> int:
+    """Timestamps at which any variable's downloads disagree (the union of the per-variable conflict masks)."""
+    masks = [np.asarray(m, bool) for m in conflict.values()]
+    return int(np.count_nonzero(np.logical_or.reduce(masks))) if masks else 0
 
 
 
@@ -172,4 +183,19 @@ def rebuild_store(ctx: Context, deployment_id: str) -> tuple[Store | None, list[
             files.append(outcome.ingested)
         if not files:
             return None, notices
-        return merge_new_files(ctx, deployment_id, files, fresh=True), notices
+        listed = _conflict_timestamps(ctx.paths.conflicts(deployment_id))
+        store = merge_new_files(ctx, deployment_id, files, fresh=True)
+        remain = _conflict_timestamps(ctx.paths.conflicts(deployment_id))
+        if listed - remain:
+            dep = ctx.register.deployment_by_id(deployment_id)
+            notices.append(Notice("conflict", conflicts_dropped_text(len(listed - remain), len(remain)),
+                                  dep.station, deployment_id))
+        return store, notices
+
+
+def _conflict_timestamps(path: Path) -> set[str]:
+    """The timestamps a conflicts file lists (empty when there is none)."""
+    if not path.exists():
+        return set()
+    with path.open(encoding="utf-8", newline="") as f:
+        return {row["time_utc"] for row in csv.DictReader(f)}

@@ -465,6 +465,8 @@ def _this_run(run: dict, archive: _Archive, out_dir: Path) -> dict:
         ("timestamps whose downloads disagree (kept, flagged suspect)", c("conflicts")),
         ("samples trimmed before deployment", c("pre_deployment")),
         ("samples trimmed after recovery", c("post_recovery")),
+        ("truncated last lines not read", c("truncated_last_line")),
+        ("records out of time order (sorted)", c("out_of_order")),
     ]
     out = {"run_counts": _table(["", "count"], [[k, _muted("not recorded") if v is None else _n(v)]
                                                 for k, v in facts], numeric={1}),

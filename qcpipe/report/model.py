@@ -96,7 +96,8 @@ class RunSummary:
     archive: str = ""
     kind: str = "nightly"                                # "nightly" (inbox and changes) or "rerun" (changes only)
 
-    reruns: dict = field(default_factory=dict)          # deployment -> why it was re-QC'd
+    reruns: dict = field(default_factory=dict)          # deployment -> why this run QC'd it (every version written)
+    unchanged: list = field(default_factory=list)        # deployments asked for whose inputs had not changed
     notices: list = field(default_factory=list)          # run-level Notice records (not of one deployment)
     report: str = ""                                     # path of the run's HTML report
 

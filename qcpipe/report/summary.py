@@ -34,10 +34,14 @@ def inbox_skip_text(skip) -> str:
 
 def summary_lines(run: RunSummary) -> list[str]:
     """The terminal summary of a run, one string per line."""
+    if run.nothing_new and run.kind == "rerun" and run.unchanged:
+        return [f"nothing changed: the latest dataset of {', '.join(run.unchanged)} was made from its current raw "
+                "files, rules, register, constants, annotations and software; nothing re-QC'd, nothing written "
+                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"]
     if run.nothing_new and run.kind == "rerun":
         return [f"nothing changed: every dataset in the archive {run.archive} was made from the current rules, "
                 "register, constants, annotations and software; nothing re-QC'd, nothing written "
-                "(to re-QC one anyway: qcpipe rerun -d DEPLOYMENT)"]
+                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"]
     skipped = [f"  skipped {s}" for s in run.skipped_in_inbox]
     if run.nothing_new and not skipped:
         return [f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
@@ -52,16 +56,24 @@ def summary_lines(run: RunSummary) -> list[str]:
     for rep in run.repeated_in_inbox:
         out.append(f"  skipped repeated copy {rep}")
     out += skipped
+    first = {r.deployment for r in run.results if r.version == 1}
     for dep, why in run.reruns.items():
-        out.append(f"  re-QC {dep}: " + "; ".join(why[:4]) + (f"; and {len(why) - 4} more" if len(why) > 4 else ""))
+        out.append(f"  {'QC' if dep in first else 're-QC'} {dep}: " + "; ".join(why[:4])
+                   + (f"; and {len(why) - 4} more" if len(why) > 4 else ""))
+    for dep in run.unchanged:
+        out.append(f"  not re-QC'd {dep}: nothing changed since its latest dataset (--even-if-unchanged to force)")
     samples = sum(r.samples for r in run.results)
     dup = sum(r.counts.get("duplicates", 0) for r in run.results)
     con = sum(r.counts.get("conflicts", 0) for r in run.results)
     pre = sum(r.counts.get("pre_deployment", 0) for r in run.results)
     post = sum(r.counts.get("post_recovery", 0) for r in run.results)
+    cut = sum(r.counts.get("truncated_last_line", 0) for r in run.results)
+    unordered = sum(r.counts.get("out_of_order", 0) for r in run.results)
     out.append(f"samples: {samples} in {len(run.results)} dataset(s); {dup} repeated records from overlapping "
                f"downloads dropped, {con} conflicting timestamps kept and flagged suspect; "
-               f"{pre} pre-deployment and {post} post-recovery samples trimmed")
+               f"{pre} pre-deployment and {post} post-recovery samples trimmed"
+               + (f"; {cut} truncated last line(s) not read" if cut else "")
+               + (f"; {unordered} record(s) out of time order sorted" if unordered else ""))
     tot = run.totals()
     out.append("flags (aggregate, all variables): " +
                ", ".join(f"{FLAG_WORDS[k]} {tot.get(k, 0)}" for k in FLAG_WORDS))

@@ -164,3 +164,26 @@ def clock_plan_lines(plan) -> list[str]:
     lines.append(f"  confirmed by {plan.confirmed_by} on {plan.confirmed_on}; then the deployments are re-run "
                  "from their archived raw files")
     return lines
+
+
+def reading_counts_texts(name: str, counts: dict) -> list[str]:
+    """What reading one raw file dropped or reordered, as sentences (none when nothing was).
+
+    ``counts``: the file's ingest counts (``truncated_last_line``: a final record cut short, not read;
+    ``out_of_order``: records earlier than the record before them, put in time order)."""
+    out = []
+    if counts.get("truncated_last_line"):
+        out.append(f"{name}: its last line is cut short (the logger stopped or the download ended mid-line); "
+                   "that record was not read")
+    n = int(counts.get("out_of_order", 0))
+    if n:
+        out.append(f"{name}: {n} record(s) are earlier than the record before them in the file; the records "
+                   "were sorted into time order (check the logger's clock was not reset during the deployment)")
+    return out
+
+
+def conflicts_dropped_text(dropped: int, kept: int) -> str:
+    """A deployment read again whose conflicts file lost rows: how many, and that they were trimmed."""
+    return (f"{dropped} conflicting record(s) listed in its conflicts file before are no longer in the deployment's "
+            "records after its raw files were read again (outside the deployment window, or moved by new clock "
+            f"settings): trimmed; the conflicts file now lists the {kept} that remain")

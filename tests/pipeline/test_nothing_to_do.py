@@ -150,9 +150,13 @@ def test_a_changed_rule_is_work_and_a_rerun_is_too(demo):
     assert pending_work(load_context(demo.workspace)).nothing
 
 
-def test_a_rerun_asked_for_deployments_is_work(demo):
+def test_a_rerun_asked_for_unchanged_deployments_is_work_only_when_forced(demo):
     ctx = load_context(demo.workspace)
-    assert run_if_nothing_to_do(ctx, ["kc-mid-probe-2026-09"], kind="rerun") is None
+    assert run_if_nothing_to_do(ctx, ["kc-mid-probe-2026-09"], kind="rerun", even_if_unchanged=True) is None
+    versions = [r["version"] for r in ctx.catalog.dataset_versions("kc-mid-probe-2026-09")]
+    idle = run_if_nothing_to_do(ctx, ["kc-mid-probe-2026-09"], kind="rerun")
+    assert idle is not None and idle.nothing_new and idle.unchanged == ["kc-mid-probe-2026-09"]
+    assert [r["version"] for r in ctx.catalog.dataset_versions("kc-mid-probe-2026-09")] == versions
 
 
 def test_cache_write_keeps_the_old_cache_or_the_new_one(demo):

@@ -99,18 +99,23 @@ def test_second_run_finds_nothing_new_and_writes_nothing(demo):
                                                                            ("nightly", "nothing new")]
 
 
-def test_rerun_of_a_probe_writes_the_next_version_of_it_and_its_station(demo):
+def test_forced_rerun_of_a_probe_writes_the_next_version_of_it_and_its_station(demo):
     # a probe's record is the immersion state of its station's instruments; nothing else depends on it
     ctx = pipeline.load_context(demo.workspace)
     before = versions(ctx)
     listing = _listing(demo.archive)
-    summary = rerun(ctx, InProcess(), ["kc-mid-probe-2026-09"])
+    assert rerun(ctx, InProcess(), ["kc-mid-probe-2026-09"]).unchanged == ["kc-mid-probe-2026-09"]
+    assert versions(ctx) == before                              # nothing changed: nothing written
+    summary = rerun(ctx, InProcess(), ["kc-mid-probe-2026-09"], even_if_unchanged=True)
     after = versions(ctx)
     expect = {"kc-mid-probe-2026-09", "kc-mid-temp-2026-09"}
     assert {d for d in after if after[d] != before[d]} == expect
     assert all(after[d] == before[d] + 1 for d in expect)
     assert sorted(r.deployment for r in summary.results) == sorted(expect)
-    assert "asked for" in summary.reruns["kc-mid-probe-2026-09"]
+    assert summary.reruns == {
+        "kc-mid-probe-2026-09": ["asked for with --even-if-unchanged (no input changed)"],
+        "kc-mid-temp-2026-09": ["immersion probe kc-mid-probe-2026-09 of the station is QC'd in this run "
+                                "(the station's immersion state)"]}
     # the other stations' datasets were not touched
     now = _listing(demo.archive)
     changed = {p for p in now if listing.get(p) != now[p]}
