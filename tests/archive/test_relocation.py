@@ -80,7 +80,7 @@ def test_moved_archive_audit_rerun_diff_lineage_package(moved):
     (before,) = ctx.catalog.dataset_versions(PROBE)
     assert Path(before["path"]).parent.parent.parent == d.moved.resolve()
 
-    rerun = cli(d, "rerun", "--deployment", PROBE)
+    rerun = cli(d, "rerun", "--deployment", PROBE, "--even-if-unchanged")
     assert rerun.returncode == 0, rerun.stdout + rerun.stderr
     old, new = ctx.catalog.dataset_versions(PROBE)
     assert (old["version"], new["version"]) == (1, 2)
