@@ -9,9 +9,10 @@ One invocation, four commands, each in its own process and timed from outside
    the run sequence without the orchestrator, ``nightly_run(ctx, InProcess())``;
 2. ``Prefect, first start``: the same run on a second fresh copy through ``qcpipe
    process`` (the nightly flow); with no ``PREFECT_API_URL`` in the environment this is
-   Prefect's embedded mode with a new database under the archive (its migrations run);
-3. ``Prefect, known database``: the same again on a third fresh copy whose archive
-   already holds the database the second run left (what every later night pays);
+   Prefect's embedded mode with a new database in a fresh state folder (``QCPIPE_STATE_DIR``;
+   its migrations run);
+3. ``Prefect, known database``: the same again on a third fresh copy whose orchestrator
+   folder already holds the database the second run left (what every later night pays);
 4. ``nothing to do``: ``qcpipe process`` again on the second copy, which has nothing new:
    it decides and records the run without starting the orchestrator (target: under 2 s).
 
@@ -74,23 +75,33 @@ def datasets(archive: Path) -> list:
     return sorted((r["deployment"], r["flag_counts"]) for r in Catalog(archive / "catalog.sqlite").datasets())
 
 
+def _orchestrator_home(workspace: Path, env: dict) -> Path:
+    """The orchestrator folder ``qcpipe process`` uses for the demo archive of ``workspace`` under ``env``."""
+    code = ("import sys; from qcpipe.flows.prefect_settings import orchestrator_home; "
+            "print(orchestrator_home(sys.argv[1]))")
+    out = subprocess.run([sys.executable, "-c", code, str(workspace.parent.parent / "demo_archive")], env=env,
+                         cwd=ROOT, capture_output=True, text=True, check=True)
+    return Path(out.stdout.strip())
+
+
 def main() -> int:
     python = sys.executable
     qcpipe = [python, "-m", "qcpipe.cli"]
-    env = {k: v for k, v in os.environ.items() if k != "PREFECT_HOME"}    # embedded: the archive's own home
+    env = {k: v for k, v in os.environ.items() if k != "PREFECT_HOME"}    # embedded: each archive's own folder
     server = env.get("PREFECT_API_URL")
     mode = f"Prefect server {server}" if server else "Prefect embedded mode"
     rows = []
     with tempfile.TemporaryDirectory(prefix="qcpipe-orchestrator-") as tmp:
         tmp = Path(tmp)
+        env["QCPIPE_STATE_DIR"] = str(tmp / "state")                      # the user's own state folder untouched
         ws_a, ws_b, ws_c = (fresh_copy(tmp / name) for name in ("inprocess", "prefect", "prefect-known"))
         a = timed([python, "-c", IN_PROCESS, str(ws_a)], env)
         rows.append(("in process: nightly_run(ctx, InProcess())", a))
         b = timed([*qcpipe, "process", "--workspace", str(ws_b), "--quiet"], env)
         rows.append((f"through Prefect, first start ({mode})", b))
         if not server:
-            shutil.copytree(tmp / "prefect" / "demo_archive" / ".prefect", tmp / "prefect-known" / "demo_archive" /
-                            ".prefect", ignore=shutil.ignore_patterns("*.lock", "server.pid"))
+            home = {ws: _orchestrator_home(ws, env) for ws in (ws_b, ws_c)}
+            shutil.copytree(home[ws_b], home[ws_c], ignore=shutil.ignore_patterns("*.lock", "server.pid"))
         c = timed([*qcpipe, "process", "--workspace", str(ws_c), "--quiet"], env)
         rows.append((f"through Prefect, known database ({mode})", c))
         nothing = [timed([*qcpipe, "process", "--workspace", str(ws_b), "--quiet"], env) for _ in range(3)]

@@ -161,14 +161,18 @@ def _take_archive(args):
 
 
 def _prepare_flow(args):
-    """Settings for the orchestrator (call before it is imported), the archive's lock taken first."""
+    """Settings for the orchestrator (call before it is imported), the archive's lock taken and the free
+    space of both disks checked first: one line, at once, instead of a failing start."""
     import os
 
     from .config import load_workspace
-    from .flows.prefect_settings import configure_prefect
+    from .flows.prefect_settings import check_orchestrator_space, configure_prefect, orchestrator_home
 
     ws = load_workspace(args.workspace)
     _take_archive(args)   # fail fast with one line before the orchestrator starts
+    _check_archive_space(ws.archive)
+    home = orchestrator_home(ws.archive)
+    check_orchestrator_space(home)
     if args.verbose:
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "INFO")
         os.environ.setdefault("PREFECT_LOGGING_LEVEL", "INFO")
@@ -176,8 +180,45 @@ def _prepare_flow(args):
         # qcpipe prints the outcome itself (one line for an expected failure); the orchestrator's
         # own record of a failed run, with its traceback, stays in its database
         os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
-    configure_prefect(ws.archive / ".prefect")
+    configure_prefect(home)
     return ws
+
+
+#: free space the archive's disk needs before the orchestrator starts, in kB: less than one dataset of the
+#: demo (125-220 kB each), so the run would stop at its first writes anyway: it stops at once instead; above
+#: it a disk that fills stops the run with the one line of ``files.storage_error`` (or the catalog's)
+ARCHIVE_MIN_FREE_KB = 256
+
+
+def _check_archive_space(archive: Path) -> None:
+    from .errors import ArchiveError
+    from .files import free_bytes
+
+    free = free_bytes(archive)
+    if free < ARCHIVE_MIN_FREE_KB * 2**10:
+        raise ArchiveError(f"disk full: {free / 2**10:.0f} kB free on the disk of archive {archive}: free space "
+                           "there and run again (nothing was started)")
+
+
+def _on_orchestrator(args, ws, fn, *a):
+    """``fn(*a)``, a flow; an unexpected failure while the orchestrator's disk is (nearly) full becomes one
+    line (the embedded server answers a full disk with a server error, HTTP 500)."""
+    from .errors import ArchiveError, QcpipeError
+    from .files import free_bytes
+    from .flows.prefect_settings import ORCHESTRATOR_MIN_FREE_MB, orchestrator_home
+
+    try:
+        return _run_with_progress(args, fn, *a)
+    except (QcpipeError, KeyboardInterrupt):
+        raise
+    except Exception:
+        home = orchestrator_home(ws.archive)
+        if free_bytes(home) >= ORCHESTRATOR_MIN_FREE_MB * 2**20 // 4:
+            raise
+        raise ArchiveError(f"disk full: the orchestrator's folder {home} ran out of space during the run "
+                           f"({free_bytes(home) / 2**20:.1f} MB free): free space on that disk, or set "
+                           "QCPIPE_STATE_DIR to a folder on another one, and run again (the archive keeps every "
+                           "file completed; the next run finishes the work)") from None
 
 
 def _where(args) -> str:
@@ -274,7 +315,7 @@ def _process(args) -> int:
     from .flows.nightly import nightly_flow_for
 
     flow = nightly_flow_for(args.dask)
-    _print_summary(_run_with_progress(args, flow, str(ws.path), args.dask), args.quiet)
+    _print_summary(_on_orchestrator(args, ws, flow, str(ws.path), args.dask), args.quiet)
     return 0
 
 
@@ -292,8 +333,8 @@ def _rerun(args) -> int:
     from .flows.rerun import rerun_flow_for
 
     flow = rerun_flow_for(args.dask)
-    _print_summary(_run_with_progress(args, flow, str(ws.path), args.deployment or None, args.dask,
-                                      args.even_if_unchanged), args.quiet)
+    _print_summary(_on_orchestrator(args, ws, flow, str(ws.path), args.deployment or None, args.dask,
+                                    args.even_if_unchanged), args.quiet)
     return 0
 
 
@@ -325,7 +366,7 @@ def _apply_clock(args) -> int:
     from .flows.rerun import rerun_flow_for
 
     flow = rerun_flow_for(args.dask)
-    _print_summary(_run_with_progress(args, flow, str(ws.path), plan.deployments, args.dask), args.quiet)
+    _print_summary(_on_orchestrator(args, ws, flow, str(ws.path), plan.deployments, args.dask), args.quiet)
     return 0
 
 
@@ -431,8 +472,19 @@ def _audit(args) -> int:
 def _package(args) -> int:
     from .archive.bag import write_bag
 
+    from .archive.lock import archive_is_read_only
+    from .errors import ArchiveError
+
     ctx = _context(args)
     out = Path(args.out) if args.out else ctx.paths.root / "packages"
+    if not args.out and archive_is_read_only(ctx.paths.root):
+        raise ArchiveError(f"archive {ctx.paths.root} is read-only: write the bags to a folder elsewhere with "
+                           "--out FOLDER")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise ArchiveError(f"cannot write bags to {out} ({err.strerror}): choose a writable folder with --out "
+                           "FOLDER") from None
     deps = args.deployment or [d["deployment"] for d in ctx.catalog.datasets()]
     for dep in sorted(set(deps)):
         _versions(ctx, dep)
@@ -527,14 +579,14 @@ def _schedule(args) -> int:
 
     from .config import load_workspace
     from .errors import ConfigError
-    from .flows.prefect_settings import configure_prefect
+    from .flows.prefect_settings import configure_prefect, orchestrator_home
 
     ws = load_workspace(args.workspace)
     ws.load()
     if not os.environ.get("PREFECT_API_URL"):
         raise ConfigError("schedules need a running Prefect server: start one with 'prefect server start' and "
                           "set PREFECT_API_URL (README: 'Running it every night')")
-    configure_prefect(ws.archive / ".prefect")
+    configure_prefect(orchestrator_home(ws.archive))
     from prefect.schedules import Cron
 
     from .flows.nightly import nightly

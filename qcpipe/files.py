@@ -1,4 +1,4 @@
-"""Files written whole or not at all, SHA-256 of a file, TOML text: the one definition of each.
+"""Files written whole or not at all, SHA-256 of a file, TOML text, free space: the one definition of each.
 
 Every file qcpipe writes goes through :func:`atomic_path`: a temporary file in the
 same folder, flushed to disk, then renamed over the final name (``os.replace``),
@@ -64,6 +64,15 @@ def storage_error(err: OSError, final: Path):
     if err.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
         return ArchiveError(f"cannot write {final} ({err.strerror}); check the archive folder's permissions")
     return err
+
+
+def free_bytes(folder: str | Path) -> int:
+    """Bytes free to this process on the disk that holds ``folder`` (or its nearest existing parent, for a
+    folder not made yet); ``shutil.disk_usage``, so space reserved for root is not counted for others."""
+    p = Path(folder).absolute()
+    while not p.exists() and p != p.parent:
+        p = p.parent
+    return shutil.disk_usage(p).free
 
 
 def write_text_atomic(final: str | Path, text: str) -> Path:

@@ -1,14 +1,15 @@
 """Shared fixtures: one real run of the nightly flow over a copy of the demo inbox.
 
 The run uses Prefect's embedded local mode exactly as ``make demo`` does (the
-``qcpipe process`` command in a subprocess, a fresh Prefect home inside the
-temporary archive), twice: the second run must find nothing new.  It is the suite's
+``qcpipe process`` command in a subprocess, a fresh orchestrator folder in the session's
+state folder, ``state_folder``), twice: the second run must find nothing new.  It is the suite's
 one real nightly run of the demo; other tests run the same sequence without the
 orchestrator (``run_sequence``).
 """
 
 from __future__ import annotations
 
+import contextlib
 import gzip
 import hashlib
 import json
@@ -69,6 +70,16 @@ def _listing(archive: Path) -> dict:
             and not p.name.startswith("catalog.sqlite") and p.name != ".lock"}
 
 
+@pytest.fixture(scope="session", autouse=True)
+def state_folder(tmp_path_factory):
+    """qcpipe's state folder (``QCPIPE_STATE_DIR``: the orchestrator's state of every archive) in the
+    session's temporary folder, never the user's; commands started by the tests inherit it."""
+    with pytest.MonkeyPatch.context() as mp:
+        folder = tmp_path_factory.mktemp("qcpipe-state")
+        mp.setenv("QCPIPE_STATE_DIR", str(folder))
+        yield folder
+
+
 def copy_demo(root: Path) -> Path:
     """A copy of the demo workspace (sample_raw, qc_rules) in ``root``; its workspace file."""
     shutil.copytree(REPO / "sample_raw", root / "sample_raw")
@@ -101,6 +112,37 @@ def demo_in_process(root: Path) -> SimpleNamespace:
     first = nightly_run(ctx, InProcess())
     return SimpleNamespace(root=root, workspace=workspace, inbox=root / "sample_raw" / "inbox",
                            archive=ctx.paths.root, first=first)
+
+
+@contextlib.contextmanager
+def small_tmpfs(mnt: Path, size_mb: int):
+    """A tmpfs of ``size_mb`` MB mounted on ``mnt`` (made here) for the block; the test is skipped, with the
+    reason, where mounting is not allowed (it needs root or CAP_SYS_ADMIN)."""
+    mnt.mkdir(parents=True, exist_ok=True)
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size_mb}m", "tmpfs", str(mnt)],
+                       capture_output=True, text=True)
+    if r.returncode != 0:
+        pytest.skip(f"cannot mount a {size_mb} MB tmpfs (needs root or CAP_SYS_ADMIN): {r.stderr.strip()}")
+    try:
+        yield mnt
+    finally:
+        subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
+
+
+@contextlib.contextmanager
+def read_only_in_place(folder: Path):
+    """``folder`` read-only for the block, even for root: bind-mounted on itself, then remounted read-only
+    (writes fail with EROFS); skipped, with the reason, where mounting is not allowed."""
+    r = subprocess.run(["mount", "--bind", str(folder), str(folder)], capture_output=True, text=True)
+    if r.returncode != 0:
+        pytest.skip(f"cannot bind-mount {folder} read-only (needs root or CAP_SYS_ADMIN): {r.stderr.strip()}")
+    try:
+        r = subprocess.run(["mount", "-o", "remount,bind,ro", str(folder)], capture_output=True, text=True)
+        if r.returncode != 0:
+            pytest.skip(f"cannot remount {folder} read-only: {r.stderr.strip()}")
+        yield folder
+    finally:
+        subprocess.run(["umount", "-l", str(folder)], capture_output=True)
 
 
 def run_cli(*args, cwd=None, env=None):

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from ..errors import ArchiveError
 from ..faults import crash_point
+from .lock import ArchiveLock, ArchiveReadOnly, archive_is_read_only, read_only_message
 
 MIGRATIONS = [
     # 1: first schema
@@ -143,16 +144,28 @@ def utc_now() -> str:
 
 
 class Catalog:
-    """Thin access layer over the SQLite catalog; one short connection per operation."""
+    """Thin access layer over the SQLite catalog; one short connection per operation.
+
+    On an archive this process cannot write (a read-only disk or folder: :func:`archive_is_read_only`)
+    the catalog is opened read-only (``mode=ro``; ``immutable=1`` when SQLite cannot make the
+    shared-memory file beside it and there is no write-ahead log to read): reading works, migrations are
+    not run and a write raises :class:`ArchiveReadOnly`."""
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
-        self.path.parent.mkdir(parents=True, exist_ok=True)
         self.root = self.path.parent.resolve()      # the archive root: relative paths are resolved against it
+        self.read_only = archive_is_read_only(self.root, self.path)
+        if self.read_only:
+            with self._connect() as con:
+                self._check_schema(con)
+            return
+        self.path.parent.mkdir(parents=True, exist_ok=True)
         with self._connect() as con:
             self._migrate(con)
 
     def _connect(self) -> sqlite3.Connection:
+        if self.read_only:
+            return self._connect_read_only()
         con = sqlite3.connect(self.path, timeout=30, isolation_level=None)
         con.row_factory = sqlite3.Row
         try:
@@ -163,8 +176,40 @@ class Catalog:
             raise _storage_error(err, self.path) from None
         return con
 
+    def _connect_read_only(self) -> sqlite3.Connection:
+        """A read-only connection: ``mode=ro`` (reads the write-ahead log, needs its shared-memory file),
+        else ``immutable=1`` when there is no write-ahead log to miss (the main file holds everything)."""
+        base = f"{self.path.resolve().as_uri()}?mode=ro"
+        wal = self.path.with_name(self.path.name + "-wal")
+        for uri in (base, f"{base}&immutable=1"):
+            if uri != base and wal.exists() and wal.stat().st_size > 0:
+                raise ArchiveReadOnly(f"catalog {self.path} has a write-ahead log ({wal.name}) that SQLite cannot "
+                                      "read on a read-only disk: open the archive once where it can be written "
+                                      "('qcpipe holdings' folds the log in), then make it read-only again")
+            con = None
+            try:
+                con = sqlite3.connect(uri, uri=True, timeout=30, isolation_level=None)
+                con.row_factory = sqlite3.Row
+                con.execute("SELECT count(*) FROM sqlite_master").fetchone()
+                return con
+            except sqlite3.OperationalError as err:
+                last = err
+                if con is not None:
+                    con.close()
+        raise ArchiveError(f"cannot read the catalog {self.path} on a read-only archive ({last}); "
+                           "check that the file is readable") from None
+
+    def _check_schema(self, con: sqlite3.Connection) -> None:
+        current = con.execute("PRAGMA user_version").fetchone()[0]
+        if current != len(MIGRATIONS):
+            raise ArchiveReadOnly(f"catalog {self.path} is at schema version {current}, this qcpipe reads version "
+                                  f"{len(MIGRATIONS)}, and the archive is read-only so it cannot be brought up to "
+                                  "date: run any qcpipe command once where the archive can be written")
+
     @contextmanager
     def transaction(self):
+        if self.read_only:
+            raise ArchiveReadOnly(read_only_message(self.root))
         con = self._connect()
         try:
             con.execute("BEGIN IMMEDIATE")
@@ -196,8 +241,12 @@ class Catalog:
                         con.execute(stmt)
                 con.execute(f"PRAGMA user_version = {version}")
                 con.execute("COMMIT")
-            except BaseException:
-                con.execute("ROLLBACK")
+            except BaseException as err:
+                if con.in_transaction:        # a failed COMMIT (a full disk) has already rolled back
+                    con.execute("ROLLBACK")
+                mapped = _storage_error(err, self.path) if isinstance(err, sqlite3.OperationalError) else err
+                if mapped is not err:
+                    raise mapped from None
                 raise
 
     @property
@@ -265,8 +314,6 @@ class Catalog:
 
     def start_run(self, kind: str = "nightly") -> int:
         """Record a run's start, holding the archive's lock until :meth:`end_run` (one run at a time)."""
-        from .lock import ArchiveLock
-
         lock = ArchiveLock(self.path.parent)
         lock.__enter__()
         remove_stale_temporaries(self.path.parent)
@@ -310,7 +357,9 @@ class Catalog:
 def _storage_error(err: sqlite3.OperationalError, path: Path) -> Exception:
     """SQLite's report of a full disk or a failing device as a one-line ArchiveError (others unchanged)."""
     text = str(err).lower()
-    if "disk" in text or "full" in text or "readonly" in text or "read-only" in text:
+    if "readonly" in text or "read-only" in text:
+        return ArchiveReadOnly(read_only_message(path.parent))
+    if "disk" in text or "full" in text:
         return ArchiveError(f"cannot write the catalog {path} ({err}): the archive's disk is full or failing; "
                             "free space (or fix the disk) and run again (the catalog keeps its last committed "
                             "state)")

@@ -12,7 +12,11 @@ Layout of an archive folder (all names are ours)::
     sites/<site>/fitted_constituents.toml (+ .json)  constants fitted to all the site's gauge records
     config/<kind>/<sha256>.toml                      configuration files as used, by content hash (rules,
                                                      register, layouts; tide_constants by the file's SHA-256)
-    .prefect/                                        the orchestrator's own state
+    .lock                                            one run at a time (archive/lock.py)
+
+The orchestrator's own state is not in the archive but in the user's state folder
+(flows/prefect_settings.orchestrator_home); a ``.prefect/`` folder left by older versions is not
+read any more and is skipped when stale temporaries are removed.
 """
 
 from __future__ import annotations
@@ -53,10 +57,6 @@ class ArchivePaths:
     @property
     def catalog(self) -> Path:
         return self.root / "catalog.sqlite"
-
-    @property
-    def prefect_home(self) -> Path:
-        return self.root / ".prefect"
 
     def raw_copy(self, station: str, deployment: str, sha256: str, name: str) -> Path:
         check_safe_id(station, "station id"); check_safe_id(deployment, "deployment id")

@@ -58,7 +58,7 @@ def test_nothing_new_process_records_the_run_without_the_orchestrator(demo, tmp_
     imported = set(modules.read_text().split())
     assert "qcpipe.pipeline.run" in imported                     # the hook saw the command's own modules
     assert not {m for m in imported if m.split(".")[0] in HEAVY}
-    assert not (demo.archive / ".prefect").exists()             # the orchestrator's settings were not even made
+    assert not (tmp_path / "prefect-home").exists()             # the orchestrator's folder was not even made
     runs = load_context(demo.workspace).catalog.runs()
     assert len(runs) == len(runs_before) + 1
     last = runs[-1]

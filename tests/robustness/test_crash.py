@@ -28,7 +28,8 @@ import pytest
 
 import xarray as xr
 
-from tests.conftest import REPO, run_cli, run_sequence
+from qcpipe.cli import ARCHIVE_MIN_FREE_KB
+from tests.conftest import REPO, run_cli, run_sequence, small_tmpfs
 
 #: the run sequence without the orchestrator, as a command (see its docstring)
 IN_PROCESS = Path(__file__).with_name("nightly_in_process.py")
@@ -337,15 +338,8 @@ def test_two_runs_at_once_do_not_interleave(tmp_path):
 
 @pytest.fixture()
 def small_disk(tmp_path):
-    mnt = tmp_path / "disk"
-    mnt.mkdir()
-    r = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=24m", "tmpfs", str(mnt)], capture_output=True, text=True)
-    if r.returncode != 0:
-        pytest.skip(f"cannot mount a small tmpfs to fill (needs root): {r.stderr.strip()}")
-    try:
+    with small_tmpfs(tmp_path / "disk", 24) as mnt:
         yield mnt
-    finally:
-        subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
 
 
 def test_disk_full_fails_clearly_and_keeps_earlier_versions(tmp_path, small_disk):
@@ -359,13 +353,18 @@ def test_disk_full_fails_clearly_and_keeps_earlier_versions(tmp_path, small_disk
     assert r.returncode == 0, r.stderr
     archive = small_disk / "archive"
     before = {p: p.read_bytes() for p in (archive / "datasets").rglob("*.nc")}
-    # fill the disk, then ask for a re-run (a changed threshold re-versions one dataset)
+    # fill the disk, then ask for a re-run (a changed threshold re-versions the temperature datasets)
     filler = small_disk / "filler"
     free = shutil.disk_usage(small_disk).free
     with open(filler, "wb") as fh:
-        fh.write(b"\0" * max(free - 64 * 1024, 0))
+        # just above the command's free-space floor (cli.ARCHIVE_MIN_FREE_KB), so the orchestrator starts
+        # and the run's own writes meet the full disk
+        fh.write(b"\0" * max(free - ARCHIVE_MIN_FREE_KB * 2**10 - 64 * 1024, 0))
     rules = tmp_path / "w" / "qc_rules" / "kelpwhistle-cove.toml"
-    rules.write_text(rules.read_text() + '\n[station.kc-high.variable.temperature]\nspike = { suspect = 3.0 }\n')
+    text = rules.read_text()      # every temperature dataset re-versioned: more than the space left
+    assert 'spike = { half_window = "20 min", suspect = 4.0, fail = 7.0 }' in text
+    rules.write_text(text.replace('spike = { half_window = "20 min", suspect = 4.0, fail = 7.0 }',
+                                  'spike = { half_window = "20 min", suspect = 3.0, fail = 7.0 }'))
     r = run_cli("process", "-w", str(ws), "-q", env=env)
     assert r.returncode == 2, r.stdout + r.stderr
     assert "disk full while writing" in r.stderr and "Traceback" not in r.stderr
