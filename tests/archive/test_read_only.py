@@ -32,7 +32,7 @@ DEPLOYMENT = "kc-deck-baro-2026-09"      # a barometer of the demo: nothing else
 @pytest.fixture(scope="module")
 def archive(tmp_path_factory):
     demo = demo_in_process(tmp_path_factory.mktemp("read-only"))
-    done = run_sequence("rerun", demo.workspace, deployments=[DEPLOYMENT], quiet=True)
+    done = run_sequence("rerun", demo.workspace, deployments=[DEPLOYMENT], quiet=True, even_if_unchanged=True)
     assert done.returncode == 0, done.stderr
     from qcpipe.pipeline import load_context
 
