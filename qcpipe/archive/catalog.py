@@ -82,6 +82,21 @@ MIGRATIONS = [
     # 5: archive paths relative to the archive root (the folder holding the catalog), so a moved or restored
     # archive works unchanged; rows outside the root stay absolute (see relative_paths)
     lambda con, root: relative_paths(con, root),
+    # 6: the notices of each run, recorded with what they are about (a dataset, a quarantined file) in the
+    # same transaction, and the run that showed them to a person: a run killed before its summary and
+    # report leaves them for the next run to show
+    """
+    CREATE TABLE notices (
+        id INTEGER PRIMARY KEY AUTOINCREMENT,
+        run_id INTEGER NOT NULL,
+        kind TEXT NOT NULL,
+        station TEXT,
+        deployment TEXT,
+        text TEXT NOT NULL,
+        reported_run INTEGER
+    );
+    CREATE INDEX notices_unreported ON notices (reported_run, run_id)
+    """,
 ]
 
 # the columns holding a path inside the archive: stored relative to the archive root, returned absolute
@@ -288,6 +303,34 @@ class Catalog:
 
     def runs(self) -> list[dict]:
         return self._select("runs", {}, "id")
+
+    # notices ---------------------------------------------------------------
+    def record_notices(self, con: sqlite3.Connection, run_id: int, notices: list[dict]) -> None:
+        """Record a run's notices (``Notice.as_dict()``), not yet shown, in the transaction ``con``."""
+        con.executemany("INSERT INTO notices (run_id, kind, station, deployment, text) VALUES (?, ?, ?, ?, ?)",
+                        [(run_id, n["kind"], n.get("station"), n.get("deployment"), n["text"]) for n in notices])
+
+    def notices(self, **where) -> list[dict]:
+        """Recorded notices (``run_id=``, ``deployment=``...), oldest first."""
+        return self._select("notices", where, "id")
+
+    def replace_notice_text(self, run_id: int, deployment: str, kind: str, text: str) -> None:
+        """The sentence of a run's notice of ``kind`` about ``deployment``, completed after it was recorded."""
+        with self.transaction() as con:
+            con.execute("UPDATE notices SET text = ? WHERE run_id = ? AND deployment = ? AND kind = ?",
+                        (text, run_id, deployment, kind))
+
+    def unreported_notices(self, run_id: int) -> list[dict]:
+        """Notices of runs before ``run_id`` that no run has shown (their run stopped before its report)."""
+        with self._connect() as con:
+            return [_row(r) for r in con.execute(
+                "SELECT * FROM notices WHERE reported_run IS NULL AND run_id < ? ORDER BY id", (run_id,))]
+
+    def mark_notices_reported(self, run_id: int) -> None:
+        """Every notice not yet shown (the run's own and those of earlier runs) as shown by run ``run_id``."""
+        with self.transaction() as con:
+            con.execute("UPDATE notices SET reported_run = ? WHERE reported_run IS NULL AND run_id <= ?",
+                        (run_id, run_id))
 
     def _select(self, table: str, where: dict, order: str) -> list[dict]:
         column = PATH_COLUMNS.get(table)
