@@ -158,13 +158,23 @@ def utc_now() -> str:
 
 
 class Catalog:
-    """Thin access layer over the SQLite catalog; one short connection per operation."""
+    """Thin access layer over the SQLite catalog; one short connection per operation, closed when it ends.
+
+    Every connection is closed explicitly (:meth:`_connection`, :meth:`transaction`), never left to the
+    garbage collector: a ``sqlite3.Connection`` refers to itself through its statement cache (CPython
+    3.11), so only the cyclic collector frees it, at any later time.  Until then it keeps its POSIX locks
+    and its mapping of the WAL index (``-shm``); once a copy of the catalog's files is closed in the same
+    process (the locks of every descriptor of a file go with it), another process may take the catalog
+    as unused, checkpoint it and delete its WAL and index, and a new connection in this process then
+    shares the stale index and reads a "malformed" database.  The last connection's close checkpoints
+    the WAL into the database file, so between operations the catalog is one file.
+    """
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
         self.path.parent.mkdir(parents=True, exist_ok=True)
         self.root = self.path.parent.resolve()      # the archive root: relative paths are resolved against it
-        with self._connect() as con:
+        with self._connection() as con:
             self._migrate(con)
 
     def _connect(self) -> sqlite3.Connection:
@@ -177,6 +187,15 @@ class Catalog:
             con.close()
             raise _storage_error(err, self.path) from None
         return con
+
+    @contextmanager
+    def _connection(self):
+        """A connection in autocommit mode (reads; migrations begin their own transactions), closed when the block ends."""
+        con = self._connect()
+        try:
+            yield con
+        finally:
+            con.close()
 
     @contextmanager
     def transaction(self):
@@ -217,17 +236,17 @@ class Catalog:
 
     @property
     def schema_version(self) -> int:
-        with self._connect() as con:
+        with self._connection() as con:
             return con.execute("PRAGMA user_version").fetchone()[0]
 
     # raw files -------------------------------------------------------------
     def known_hashes(self) -> set[str]:
-        with self._connect() as con:
+        with self._connection() as con:
             return {r[0] for r in con.execute("SELECT sha256 FROM raw_files")}
 
     def inbox_hashes(self) -> dict[str, tuple[int, int, int, str]]:
         """The cached content hashes of the inbox: {path: (size, mtime_ns, ctime_ns, sha256)}."""
-        with self._connect() as con:
+        with self._connection() as con:
             return {r[0]: (r[1], r[2], r[3], r[4])
                     for r in con.execute("SELECT path, size, mtime_ns, ctime_ns, sha256 FROM inbox_hashes")}
 
@@ -251,7 +270,7 @@ class Catalog:
 
     # datasets --------------------------------------------------------------
     def latest_dataset(self, deployment: str) -> dict | None:
-        with self._connect() as con:
+        with self._connection() as con:
             r = con.execute("SELECT * FROM datasets WHERE deployment = ? ORDER BY version DESC LIMIT 1",
                             (deployment,)).fetchone()
         return self._row(r, "datasets") if r else None
@@ -322,7 +341,7 @@ class Catalog:
 
     def unreported_notices(self, run_id: int) -> list[dict]:
         """Notices of runs before ``run_id`` that no run has shown (their run stopped before its report)."""
-        with self._connect() as con:
+        with self._connection() as con:
             return [_row(r) for r in con.execute(
                 "SELECT * FROM notices WHERE reported_run IS NULL AND run_id < ? ORDER BY id", (run_id,))]
 
@@ -338,7 +357,7 @@ class Catalog:
             where = {**where, column: stored_path(where[column], self.root)}
         clause = " AND ".join(f"{k} = ?" for k in where)
         sql = f"SELECT * FROM {table}" + (f" WHERE {clause}" if clause else "") + f" ORDER BY {order}"
-        with self._connect() as con:
+        with self._connection() as con:
             return [self._row(r, table) for r in con.execute(sql, tuple(where.values()))]
 
     def _row(self, r: sqlite3.Row, table: str) -> dict:

@@ -337,3 +337,50 @@ def test_notices_unshown_by_their_run_go_to_the_next_run_once(cat):
     cat.mark_notices_reported(2)
     assert cat.unreported_notices(3) == []
     assert {n["reported_run"] for n in cat.notices()} == {2}
+
+
+def test_every_catalog_operation_closes_its_connection(tmp_path):
+    """No operation leaves a connection for the garbage collector: with the cyclic collector off, no
+    ``sqlite3.Connection`` outlives the operations, and the last close has checkpointed the WAL into the
+    database file and removed the WAL and its index (SQLite's documented behaviour on the last close of a
+    WAL database, sqlite.org/wal.html "the WAL file is deleted" when the last connection closes).
+
+    A connection left open keeps POSIX locks that a copy of the files closed in the same process drops;
+    another process then checkpoints and deletes the WAL under it and a new connection here reads
+    "database disk image is malformed" (a moved archive, tests/archive/test_relocation.py)."""
+    import gc
+
+    def open_connections() -> int:
+        n = 0
+        for o in gc.get_objects():
+            if isinstance(o, sqlite3.Connection):
+                try:
+                    o.total_changes                 # ProgrammingError once closed
+                    n += 1
+                except sqlite3.ProgrammingError:
+                    pass
+        return n
+
+    path = tmp_path / "archive" / "catalog.sqlite"
+    gc.collect()
+    gc.disable()
+    try:
+        before = open_connections()
+        cat = Catalog(path)
+        with cat.transaction() as con:
+            cat.record_raw(con, **raw_row(SHA_A))
+            cat.record_dataset(con, **dataset_row(1))
+            cat.record_notices(con, 1, [{"kind": "clock", "text": "t", "station": "st1", "deployment": "dep1"}])
+        run_id = cat.start_run()
+        cat.end_run(run_id, "completed", {})
+        cat.save_inbox_hashes({"a.csv": (1, 2, 3, SHA_A)})
+        assert cat.schema_version == len(MIGRATIONS) and cat.known_hashes() == {SHA_A}
+        assert cat.latest_dataset("dep1")["version"] == 1 and len(cat.datasets()) == 1
+        assert cat.inbox_hashes() and cat.runs() and cat.raw_files() and cat.notices()
+        assert [n["text"] for n in cat.unreported_notices(2)] == ["t"]
+        cat.mark_notices_reported(2)
+        left = open_connections() - before
+    finally:
+        gc.enable()
+    assert left == 0
+    assert sorted(p.name for p in path.parent.iterdir() if p.name.startswith("catalog")) == ["catalog.sqlite"]
