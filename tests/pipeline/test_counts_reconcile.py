@@ -118,7 +118,7 @@ def test_files_and_quarantine_reconcile(demo):
     assert len(inbox_files) == 20 and len(quarantined) == len(in_catalog) == 2
     assert len(archived) == len(raw_copies) == len(inbox_files) - len(quarantined)
     assert line(demo, "files:") == (f"files: {len(inbox_files)} in inbox, {len(archived)} ingested, {len(quarantined)} "
-                                    "quarantined, 0 already archived, 0 repeated copies skipped")
+                                    "quarantined, 0 already archived, 0 repeated copies skipped, 0 skipped this run")
     assert sorted(q.name for q in demo.summary.quarantined) == sorted(p.name.split("_", 1)[1] for p in quarantined)
 
 
