@@ -83,6 +83,21 @@ MIGRATIONS = [
     # 5: archive paths relative to the archive root (the folder holding the catalog), so a moved or restored
     # archive works unchanged; rows outside the root stay absolute (see relative_paths)
     lambda con, root: relative_paths(con, root),
+    # 6: the notices of each run, recorded with what they are about (a dataset, a quarantined file) in the
+    # same transaction, and the run that showed them to a person: a run killed before its summary and
+    # report leaves them for the next run to show
+    """
+    CREATE TABLE notices (
+        id INTEGER PRIMARY KEY AUTOINCREMENT,
+        run_id INTEGER NOT NULL,
+        kind TEXT NOT NULL,
+        station TEXT,
+        deployment TEXT,
+        text TEXT NOT NULL,
+        reported_run INTEGER
+    );
+    CREATE INDEX notices_unreported ON notices (reported_run, run_id)
+    """,
 ]
 
 # the columns holding a path inside the archive: stored relative to the archive root, returned absolute
@@ -144,23 +159,33 @@ def utc_now() -> str:
 
 
 class Catalog:
-    """Thin access layer over the SQLite catalog; one short connection per operation.
+    """Thin access layer over the SQLite catalog; one short connection per operation, closed when it ends.
+
+    Every connection is closed explicitly (:meth:`_connection`, :meth:`transaction`), never left to the
+    garbage collector: a ``sqlite3.Connection`` refers to itself through its statement cache (CPython
+    3.11), so only the cyclic collector frees it, at any later time.  Until then it keeps its POSIX locks
+    and its mapping of the WAL index (``-shm``); once a copy of the catalog's files is closed in the same
+    process (the locks of every descriptor of a file go with it), another process may take the catalog
+    as unused, checkpoint it and delete its WAL and index, and a new connection in this process then
+    shares the stale index and reads a "malformed" database.  The last connection's close checkpoints
+    the WAL into the database file, so between operations the catalog is one file.
 
     On an archive this process cannot write (a read-only disk or folder: :func:`archive_is_read_only`)
     the catalog is opened read-only (``mode=ro``; ``immutable=1`` when SQLite cannot make the
     shared-memory file beside it and there is no write-ahead log to read): reading works, migrations are
-    not run and a write raises :class:`ArchiveReadOnly`."""
+    not run and a write raises :class:`ArchiveReadOnly`.
+    """
 
     def __init__(self, path: str | Path):
         self.path = Path(path)
         self.root = self.path.parent.resolve()      # the archive root: relative paths are resolved against it
         self.read_only = archive_is_read_only(self.root, self.path)
         if self.read_only:
-            with self._connect() as con:
+            with self._connection() as con:
                 self._check_schema(con)
             return
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        with self._connect() as con:
+        with self._connection() as con:
             self._migrate(con)
 
     def _connect(self) -> sqlite3.Connection:
@@ -207,6 +232,15 @@ class Catalog:
                                   "date: run any qcpipe command once where the archive can be written")
 
     @contextmanager
+    def _connection(self):
+        """A connection in autocommit mode (reads; migrations begin their own transactions), closed when the block ends."""
+        con = self._connect()
+        try:
+            yield con
+        finally:
+            con.close()
+
+    @contextmanager
     def transaction(self):
         if self.read_only:
             raise ArchiveReadOnly(read_only_message(self.root))
@@ -251,17 +285,17 @@ class Catalog:
 
     @property
     def schema_version(self) -> int:
-        with self._connect() as con:
+        with self._connection() as con:
             return con.execute("PRAGMA user_version").fetchone()[0]
 
     # raw files -------------------------------------------------------------
     def known_hashes(self) -> set[str]:
-        with self._connect() as con:
+        with self._connection() as con:
             return {r[0] for r in con.execute("SELECT sha256 FROM raw_files")}
 
     def inbox_hashes(self) -> dict[str, tuple[int, int, int, str]]:
         """The cached content hashes of the inbox: {path: (size, mtime_ns, ctime_ns, sha256)}."""
-        with self._connect() as con:
+        with self._connection() as con:
             return {r[0]: (r[1], r[2], r[3], r[4])
                     for r in con.execute("SELECT path, size, mtime_ns, ctime_ns, sha256 FROM inbox_hashes")}
 
@@ -285,7 +319,7 @@ class Catalog:
 
     # datasets --------------------------------------------------------------
     def latest_dataset(self, deployment: str) -> dict | None:
-        with self._connect() as con:
+        with self._connection() as con:
             r = con.execute("SELECT * FROM datasets WHERE deployment = ? ORDER BY version DESC LIMIT 1",
                             (deployment,)).fetchone()
         return self._row(r, "datasets") if r else None
@@ -336,13 +370,41 @@ class Catalog:
     def runs(self) -> list[dict]:
         return self._select("runs", {}, "id")
 
+    # notices ---------------------------------------------------------------
+    def record_notices(self, con: sqlite3.Connection, run_id: int, notices: list[dict]) -> None:
+        """Record a run's notices (``Notice.as_dict()``), not yet shown, in the transaction ``con``."""
+        con.executemany("INSERT INTO notices (run_id, kind, station, deployment, text) VALUES (?, ?, ?, ?, ?)",
+                        [(run_id, n["kind"], n.get("station"), n.get("deployment"), n["text"]) for n in notices])
+
+    def notices(self, **where) -> list[dict]:
+        """Recorded notices (``run_id=``, ``deployment=``...), oldest first."""
+        return self._select("notices", where, "id")
+
+    def replace_notice_text(self, run_id: int, deployment: str, kind: str, text: str) -> None:
+        """The sentence of a run's notice of ``kind`` about ``deployment``, completed after it was recorded."""
+        with self.transaction() as con:
+            con.execute("UPDATE notices SET text = ? WHERE run_id = ? AND deployment = ? AND kind = ?",
+                        (text, run_id, deployment, kind))
+
+    def unreported_notices(self, run_id: int) -> list[dict]:
+        """Notices of runs before ``run_id`` that no run has shown (their run stopped before its report)."""
+        with self._connection() as con:
+            return [_row(r) for r in con.execute(
+                "SELECT * FROM notices WHERE reported_run IS NULL AND run_id < ? ORDER BY id", (run_id,))]
+
+    def mark_notices_reported(self, run_id: int) -> None:
+        """Every notice not yet shown (the run's own and those of earlier runs) as shown by run ``run_id``."""
+        with self.transaction() as con:
+            con.execute("UPDATE notices SET reported_run = ? WHERE reported_run IS NULL AND run_id <= ?",
+                        (run_id, run_id))
+
     def _select(self, table: str, where: dict, order: str) -> list[dict]:
         column = PATH_COLUMNS.get(table)
         if column in where:
             where = {**where, column: stored_path(where[column], self.root)}
         clause = " AND ".join(f"{k} = ?" for k in where)
         sql = f"SELECT * FROM {table}" + (f" WHERE {clause}" if clause else "") + f" ORDER BY {order}"
-        with self._connect() as con:
+        with self._connection() as con:
             return [self._row(r, table) for r in con.execute(sql, tuple(where.values()))]
 
     def _row(self, r: sqlite3.Row, table: str) -> dict:

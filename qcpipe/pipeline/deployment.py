@@ -282,7 +282,8 @@ def build_dataset(ctx: Context, p: Prepared, flags: dict, manual_notes: dict, no
 
 def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, now: str, fc: dict,
            run_id: int | None) -> None:
-    """Step 5: copy the run's new raw files into the archive and record them and the dataset in one transaction."""
+    """Step 5: copy the run's new raw files into the archive and record them, the dataset and the run's notices
+    of it in one transaction (a run killed before its summary leaves the notices to the next run)."""
     reg, cat, station, dep, store = ctx.register, ctx.catalog, p.station, p.dep, p.store
     archive_configuration(ctx, station.site)
     with cat.transaction() as con:
@@ -300,6 +301,8 @@ def commit(ctx: Context, p: Prepared, new_files, out_path: Path, version: int, n
                            software_version=__version__, created=now, samples=int(store.time.size),
                            flag_counts=fc, raw_sha256=store.sources, qc_key=p.qc_key,
                            qc_inputs=p.qc_inputs, sha256=sha256_of_file(out_path), run_id=run_id)
+        if run_id is not None:
+            cat.record_notices(con, run_id, [n.as_dict() for n in p.notices])
 
 
 def archive_configuration(ctx: Context, site_id: str) -> list[Path]:
@@ -352,10 +355,12 @@ def _committed_by_run(ctx: Context, deployment_id: str, run_id: int | None,
     if row is None or row.get("run_id") != run_id:
         return None
     store_counts = load_store(ctx, deployment_id).counts if new_files else {}
+    recorded = [Notice.from_dict(n) for n in ctx.catalog.notices(run_id=run_id, deployment=deployment_id)]
     return DeploymentResult(row["station"], deployment_id, Path(row["path"]), row["version"], row["samples"],
                             row["flag_counts"], _run_counts(new_files, store_counts),
                             [Notice("run", f"version {row['version']} was written by an earlier attempt of this run "
-                                    "(the task was tried again after an I/O error)", row["station"], deployment_id)])
+                                    "(the task was tried again after an I/O error)", row["station"], deployment_id),
+                             *recorded])
 
 
 def prune_versions(ctx: Context, deployment_id: str) -> list[Path]:
@@ -418,7 +423,7 @@ def qc_station(ctx: Context, station_id: str, deployment_ids: list[str], new_fil
     """QC the given deployments of one station in order (probe first), then its exposure products."""
     results = [qc_deployment(ctx, d, new_files=new_files.get(d, []), tide=tide, run_id=run_id)
                for d in deployment_ids]
-    note_companions(ctx, results)
+    note_companions(ctx, results, run_id)
     station = ctx.register.station_by_id(station_id)
     written = derived.write_exposure_products(ctx, station)
     if written and results:
@@ -490,8 +495,9 @@ def _r(x: float, nd: int = 1) -> float | None:
     return round(float(x), nd) if np.isfinite(x) else None
 
 
-def note_companions(ctx: Context, results: list) -> None:
-    """Name the station's other loggers, with their own clock lags, in a probe's clock notice (in place)."""
+def note_companions(ctx: Context, results: list, run_id: int | None = None) -> None:
+    """Name the station's other loggers, with their own clock lags, in a probe's clock notice (in place, and in
+    the catalog's record of run ``run_id``'s notices)."""
     for r in results:
         i = next((i for i, n in enumerate(r.notices) if n.kind == "clock" and n.deployment == r.deployment), None)
         if i is None:
@@ -501,6 +507,9 @@ def note_companions(ctx: Context, results: list) -> None:
             row = ctx.catalog.latest_dataset(d)
             attrs = read_attrs(row["path"]) if row is not None and Path(row["path"]).exists() else {}
             others.append((d, {k: v for k, v in attrs.items() if k.startswith("clock_companion_")}))
-        n = r.notices[i]
-        r.notices[i] = Notice("clock", f"{n.text}; {companion_clock_text(r.deployment, others)}", n.station,
-                              n.deployment)
+        n, extra = r.notices[i], companion_clock_text(r.deployment, others)
+        if n.text.endswith(extra):          # a task tried again: the recorded notice has it already
+            continue
+        r.notices[i] = Notice("clock", f"{n.text}; {extra}", n.station, n.deployment)
+        if run_id is not None:
+            ctx.catalog.replace_notice_text(run_id, r.deployment, "clock", r.notices[i].text)

@@ -12,6 +12,7 @@ from ..config.register import LoadedRegister
 from ..errors import ConfigError
 from ..files import copy_atomic, write_bytes_atomic, write_text_atomic
 from ..ingest.discover import InboxSkip, RawFile, discover_files
+from ..report.model import Quarantined
 from .context import Context
 
 if TYPE_CHECKING:                 # the readers (pandas) are imported when a file is read
@@ -105,9 +106,10 @@ def read_inbox_file(ctx: Context, raw: RawFile) -> FileOutcome:
     return outcome
 
 
-def quarantine_file(ctx: Context, outcome: FileOutcome) -> Path:
+def quarantine_file(ctx: Context, outcome: FileOutcome, run_id: int | None = None) -> Path:
     """Copy a rejected file (unless :func:`read_inbox_file` kept it there already) and its reason to
-    quarantine, and record it in the catalog.  The copy must have the file's hash (SourceChanged if not)."""
+    quarantine, and record it in the catalog with the notice of run ``run_id`` that names it (for a next
+    run to show if this one stops before its summary).  The copy must have the file's hash (SourceChanged if not)."""
     raw = outcome.raw
     dest = ctx.paths.quarantine(raw.sha256, raw.name)
     if not dest.exists():
@@ -118,6 +120,8 @@ def quarantine_file(ctx: Context, outcome: FileOutcome) -> Path:
         ctx.catalog.record_raw(con, sha256=raw.sha256, size=raw.size, original_name=raw.name,
                                original_path=str(raw.path), archived_path=str(dest), status="quarantined",
                                reason=outcome.reason)
+        if run_id is not None:
+            ctx.catalog.record_notices(con, run_id, [Quarantined(raw.name, outcome.reason).notice().as_dict()])
     return dest
 
 

@@ -75,7 +75,7 @@ def read_raw_file(job: Job, raw):
 
 def quarantine(job: Job, outcome) -> str:
     """Copy a rejected file and its reason to quarantine."""
-    return str(quarantine_file(job.context(), outcome))
+    return str(quarantine_file(job.context(), outcome, job.run_id))
 
 
 def merge_deployment(job: Job, deployment_id, files) -> str:
@@ -353,10 +353,21 @@ def report_run_dict(ctx: Context, run_id: int, summary: RunSummary) -> dict:
 
 
 def report_run(ctx: Context, runner: Runner, run_id: int, summary: RunSummary) -> None:
-    """The report of a run that changed something, station pages in parallel on the runner;
-    a failure to write it is a notice, not a failed run (the data are already committed)."""
-    if summary.nothing_new:
-        return
+    """The report of a run that changed something or found notices earlier runs did not show (killed
+    or failed before their summary: ``summary.earlier``), station pages in parallel on the runner;
+    a failure to write it is a notice, not a failed run (the data are already committed).  Then
+    every notice so far is recorded as shown by this run."""
+    summary.earlier = [(int(n["run_id"]), Notice.from_dict(n)) for n in ctx.catalog.unreported_notices(run_id)]
+    if not summary.nothing_new or summary.earlier:
+        write_run_reports(ctx, runner, run_id, summary)
+    try:
+        ctx.catalog.mark_notices_reported(run_id)
+    except (OSError, sqlite3.Error):
+        pass          # the notices stay unshown: the next run shows them again, nothing is lost
+
+
+def write_run_reports(ctx: Context, runner: Runner, run_id: int, summary: RunSummary) -> None:
+    """The run's report: station pages in parallel on the runner, then the index (``summary.report``)."""
     from ..report import report_stations
 
     try:

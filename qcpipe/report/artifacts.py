@@ -12,7 +12,7 @@ import sys
 from pathlib import Path
 
 from ..checks.flags import FLAG_KEYS, FLAG_WORDS
-from .model import NOTICE_KINDS, Notice
+from .model import NOTICE_KINDS, Notice, earlier_notices
 
 SUMMARY_KEY = "qcpipe-run-summary"
 REPORT_KEY = "qcpipe-run-report"
@@ -56,7 +56,7 @@ def summary_markdown(run: dict) -> str:
                   f"{int(r['air_pressure']['from_barometer'])} samples, configured constant at "
                   f"{int(r['air_pressure']['from_constant'])} (flagged suspect)" for r in baro]
     notices = [Notice.from_dict(n) for r in results for n in r.get("notices", [])]
-    notices += [Notice.from_dict(n) for n in run.get("notices", [])]
+    notices += [Notice.from_dict(n) for n in run.get("notices", [])] + earlier_notices(run)
     if notices:
         lines += ["", "## Needs attention", ""] + [f"* {NOTICE_KINDS[n.kind]}: {_cell(n.line())}" for n in notices]
     return "\n".join(lines) + "\n"

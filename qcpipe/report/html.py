@@ -52,6 +52,8 @@ pipeline's run summary, ``run_from_catalog`` from the catalog)::
                                             # (optional) level loggers: the air pressure subtracted
       }],
       "notices": [{"kind": "run", "text": "...", "station": None, "deployment": None}],   # (optional) run-level
+      "earlier": [{"run_id": 6, "kind": "clock", "text": "...", "station": "kc-mid",      # (optional) notices of
+                   "deployment": "kc-mid-probe-2026-09"}],      # earlier runs that stopped before showing them
       "kind": "nightly",                    # (optional) catalog runs.kind: nightly, rerun
       "reruns": {"kc-mid-temp-2026-09": ["rule set changed"]},   # (optional) re-QC'd deployments and why
       "diff": [{                            # (optional) flags that changed from the previous version
@@ -94,7 +96,7 @@ from ..checks.flags import FLAG_KEYS, FLAG_WORDS
 from ..files import atomic_path
 from . import plots
 from .figure_cache import CACHE_DIR_NAME, FigureCache, png_size
-from .model import NOTICE_KINDS, Notice
+from .model import NOTICE_KINDS, Notice, earlier_notices
 
 #: text symbols matching the plot markers (circle, square, triangle, cross, bar)
 FLAG_SYMBOLS = {"1": "\u25cf", "2": "\u25a0", "3": "\u25b2", "4": "\u2716", "9": "\u2758"}
@@ -136,6 +138,7 @@ def run_from_summary(summary, *, run_id: int | None = None, started: str | None 
             "repeated_in_inbox": [str(x) for x in summary.repeated_in_inbox],
             "skipped_in_inbox": [str(x) for x in summary.skipped_in_inbox], "results": results,
             "notices": _notice_dicts(getattr(summary, "notices", [])),
+            "earlier": [{"run_id": int(run_id), **n.as_dict()} for run_id, n in getattr(summary, "earlier", [])],
             "reruns": {str(d): [str(w) for w in why] for d, why in getattr(summary, "reruns", {}).items()}}
 
 
@@ -384,7 +387,7 @@ def _attention_items(run: dict, archive: _Archive, station_filter: str | None = 
             items.append(_item("quarantine", _text(q.get("name")), _text(q.get("reason"))))
     notices = [Notice.from_dict(n) for r in results for n in r.get("notices", [])]
     if station_filter is None:
-        notices += [Notice.from_dict(n) for n in run.get("notices", [])]
+        notices += [Notice.from_dict(n) for n in run.get("notices", [])] + earlier_notices(run)
     clock_seen = {n.deployment for n in notices if n.kind == "clock"}
     items += [_item(n.kind, n.where, n.text) for n in notices]
     for r in results:           # suspected clock errors recorded in the dataset even without a notice

@@ -61,11 +61,26 @@ class Notice:
         return cls(kind=str(d["kind"]), text=str(d["text"]), station=d.get("station"), deployment=d.get("deployment"))
 
 
+def earlier_notice(run_id: int, notice: Notice) -> Notice:
+    """A notice of an earlier run that stopped (killed, failed) before showing it, as a later run shows it."""
+    return Notice(notice.kind, f"{notice.text} (found by run {run_id}, which stopped before showing it)",
+                  notice.station, notice.deployment)
+
+
+def earlier_notices(run: dict) -> list[Notice]:
+    """The ``earlier`` notices of a ``run`` dict (``report.html``), as this run shows them."""
+    return [earlier_notice(int(n["run_id"]), Notice.from_dict(n)) for n in run.get("earlier", [])]
+
+
 @dataclass
 class Quarantined:
     """A raw file that could not be used, and why (one line)."""
     name: str
     reason: str
+
+    def notice(self) -> Notice:
+        """The same as a notice (kind "quarantine"), as the catalog keeps it for a run that stops before its summary."""
+        return Notice("quarantine", self.reason if self.reason.startswith(self.name) else f"{self.name}: {self.reason}")
 
 
 @dataclass
@@ -99,6 +114,8 @@ class RunSummary:
     reruns: dict = field(default_factory=dict)          # deployment -> why this run QC'd it (every version written)
     unchanged: list = field(default_factory=list)        # deployments asked for whose inputs had not changed
     notices: list = field(default_factory=list)          # run-level Notice records (not of one deployment)
+    earlier: list = field(default_factory=list)          # (run id, Notice) of earlier runs that stopped before
+                                                         # showing them (killed or failed), shown by this run
     report: str = ""                                     # path of the run's HTML report
 
     @property
@@ -121,5 +138,6 @@ class RunSummary:
                 "flags": self.totals()}
 
     def all_notices(self) -> list[Notice]:
-        """Run-level notices, then each dataset's, in order."""
-        return list(self.notices) + [n for r in self.results for n in r.notices]
+        """Run-level notices, then each dataset's, in order, then those of earlier runs that stopped before showing them."""
+        return (list(self.notices) + [n for r in self.results for n in r.notices]
+                + [earlier_notice(run_id, n) for run_id, n in self.earlier])

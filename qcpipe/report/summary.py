@@ -37,17 +37,18 @@ def summary_lines(run: RunSummary) -> list[str]:
     if run.nothing_new and run.kind == "rerun" and run.unchanged:
         return [f"nothing changed: the latest dataset of {', '.join(run.unchanged)} was made from its current raw "
                 "files, rules, register, constants, annotations and software; nothing re-QC'd, nothing written "
-                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"]
+                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"] + _attention(run)
     if run.nothing_new and run.kind == "rerun":
         return [f"nothing changed: every dataset in the archive {run.archive} was made from the current rules, "
                 "register, constants, annotations and software; nothing re-QC'd, nothing written "
-                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"]
+                "(to write a new version anyway: qcpipe rerun -d DEPLOYMENT --even-if-unchanged)"] + _attention(run)
     skipped = [f"  skipped {s}" for s in run.skipped_in_inbox]
     if run.nothing_new and not skipped:
-        return [f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
+        return ([f"nothing new: {run.files_seen} file(s) in the inbox, all already in the archive {run.archive}"]
+                + _attention(run))
     if run.nothing_new:
         return [f"nothing new: {run.files_seen} file(s) in the inbox, {run.files_known} already in the archive "
-                f"{run.archive}, {len(skipped)} skipped this run", *skipped]
+                f"{run.archive}, {len(skipped)} skipped this run", *skipped, *_attention(run)]
     out = [f"files: {run.files_seen} in inbox, {run.ingested} ingested, {len(run.quarantined)} quarantined, "
            f"{run.files_known} already archived, {len(run.repeated_in_inbox)} repeated copies skipped, "
            f"{len(skipped)} skipped this run"]
@@ -85,12 +86,14 @@ def summary_lines(run: RunSummary) -> list[str]:
     if baro:
         out.append("barometric correction (air pressure subtracted for water level):")
         out += [f"  {r.station}/{r.deployment}: {air_pressure_words(r.air_pressure)}" for r in baro]
-    notices = run.all_notices()
-    if notices:
-        out.append("needs attention:")
-        out += [f"  {n.line()}" for n in notices]
+    out += _attention(run)
     n_products = sum(len(r.products) for r in run.results)
     out.append(f"outputs: {run.archive}/datasets, {n_products} derived products in {run.archive}/derived "
                f"(catalog {run.archive}/catalog.sqlite)")
     return out
 
+
+def _attention(run: RunSummary) -> list[str]:
+    """The "needs attention" lines: every notice of the run, and those earlier runs stopped before showing."""
+    notices = run.all_notices()
+    return ["needs attention:"] + [f"  {n.line()}" for n in notices] if notices else []

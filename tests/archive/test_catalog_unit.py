@@ -41,13 +41,13 @@ def cat(tmp_path):
 # --- schema -----------------------------------------------------------------------------------
 
 def test_new_catalog_has_every_migration_and_reopening_keeps_rows(cat):
-    # five migrations are listed in catalog.py (first schema, re-run columns, run_id, inbox hashes,
-    # archive paths relative to the archive root)
-    assert len(MIGRATIONS) == 5 and cat.schema_version == 5
+    # six migrations are listed in catalog.py (first schema, re-run columns, run_id, inbox hashes,
+    # archive paths relative to the archive root, the runs' notices)
+    assert len(MIGRATIONS) == 6 and cat.schema_version == 6
     with cat.transaction() as con:
         cat.record_raw(con, **raw_row(SHA_A))
     again = Catalog(cat.path)                   # migrations must not run twice or drop anything
-    assert again.schema_version == 5 and again.known_hashes() == {SHA_A}
+    assert again.schema_version == 6 and again.known_hashes() == {SHA_A}
 
 
 # --- paths relative to the archive root -------------------------------------------------------
@@ -103,7 +103,7 @@ def test_migration_5_makes_existing_paths_inside_the_archive_relative(tmp_path):
                 (SHA_A, str(root.resolve() / "raw" / "st1" / "d" / "f")))
     con.close()
     cat = Catalog(root / "catalog.sqlite")
-    assert cat.schema_version == 5
+    assert cat.schema_version == len(MIGRATIONS)      # and every later one
     con = sqlite3.connect(cat.path)
     assert [r[0] for r in con.execute("SELECT path FROM datasets ORDER BY version")] == \
         ["datasets/st1/d_v001.nc", outside]
@@ -317,3 +317,70 @@ def test_copy_atomic_with_failing_rename_and_then_succeeding(tmp_path, monkeypat
     copy_atomic(src, final)
     assert final.read_bytes() == b"\x00new\xff" and temporaries(final.parent) == []
     assert src.read_bytes() == b"\x00new\xff"                  # the source is only read
+
+
+def test_notices_unshown_by_their_run_go_to_the_next_run_once(cat):
+    """A run's notices are recorded in a transaction; those its run never marked shown (it was killed)
+    are the next run's to show, and once that run marks them they are nobody's."""
+    clock = {"kind": "clock", "text": "clock off", "station": "st1", "deployment": "dep1"}
+    with cat.transaction() as con:
+        cat.record_notices(con, 1, [clock])
+    with pytest.raises(RuntimeError):
+        with cat.transaction() as con:          # rolled back with what it was recorded with
+            cat.record_notices(con, 1, [{"kind": "fouling", "text": "x", "deployment": "dep2"}])
+            raise RuntimeError("stop")
+    cat.replace_notice_text(1, "dep1", "clock", "clock off; and its companions")
+    assert [(n["run_id"], n["text"]) for n in cat.unreported_notices(2)] == [(1, "clock off; and its companions")]
+    assert cat.unreported_notices(1) == []     # a run's own notices are not "earlier" ones
+    with cat.transaction() as con:
+        cat.record_notices(con, 2, [{"kind": "run", "text": "own"}])
+    cat.mark_notices_reported(2)
+    assert cat.unreported_notices(3) == []
+    assert {n["reported_run"] for n in cat.notices()} == {2}
+
+
+def test_every_catalog_operation_closes_its_connection(tmp_path):
+    """No operation leaves a connection for the garbage collector: with the cyclic collector off, no
+    ``sqlite3.Connection`` outlives the operations, and the last close has checkpointed the WAL into the
+    database file and removed the WAL and its index (SQLite's documented behaviour on the last close of a
+    WAL database, sqlite.org/wal.html "the WAL file is deleted" when the last connection closes).
+
+    A connection left open keeps POSIX locks that a copy of the files closed in the same process drops;
+    another process then checkpoints and deletes the WAL under it and a new connection here reads
+    "database disk image is malformed" (a moved archive, tests/archive/test_relocation.py)."""
+    import gc
+
+    def open_connections() -> int:
+        n = 0
+        for o in gc.get_objects():
+            if isinstance(o, sqlite3.Connection):
+                try:
+                    o.total_changes                 # ProgrammingError once closed
+                    n += 1
+                except sqlite3.ProgrammingError:
+                    pass
+        return n
+
+    path = tmp_path / "archive" / "catalog.sqlite"
+    gc.collect()
+    gc.disable()
+    try:
+        before = open_connections()
+        cat = Catalog(path)
+        with cat.transaction() as con:
+            cat.record_raw(con, **raw_row(SHA_A))
+            cat.record_dataset(con, **dataset_row(1))
+            cat.record_notices(con, 1, [{"kind": "clock", "text": "t", "station": "st1", "deployment": "dep1"}])
+        run_id = cat.start_run()
+        cat.end_run(run_id, "completed", {})
+        cat.save_inbox_hashes({"a.csv": (1, 2, 3, SHA_A)})
+        assert cat.schema_version == len(MIGRATIONS) and cat.known_hashes() == {SHA_A}
+        assert cat.latest_dataset("dep1")["version"] == 1 and len(cat.datasets()) == 1
+        assert cat.inbox_hashes() and cat.runs() and cat.raw_files() and cat.notices()
+        assert [n["text"] for n in cat.unreported_notices(2)] == ["t"]
+        cat.mark_notices_reported(2)
+        left = open_connections() - before
+    finally:
+        gc.enable()
+    assert left == 0
+    assert sorted(p.name for p in path.parent.iterdir() if p.name.startswith("catalog")) == ["catalog.sqlite"]

@@ -110,3 +110,55 @@ def test_no_orchestrator_outlives_a_killed_command(tmp_path):
             except ProcessLookupError:
                 pass
         proc.wait(30)
+
+
+#: the run sequence without the orchestrator, as a command that can be killed at a crash point
+IN_PROCESS = Path(__file__).with_name("nightly_in_process.py")
+
+
+def test_notices_of_a_killed_run_are_shown_by_the_next(tmp_path, monkeypatch):
+    """A run killed after it committed every dataset (and recorded its end) but before its report and
+    summary: the next run shows every notice the uninterrupted run shows (clock and quarantine
+    among them), each naming the killed run, in its summary and its report; the run after that shows
+    them no more.
+
+    Reference: the same run uninterrupted on another copy of the demo, its crash points counted; the kill
+    is at the first point of the report (its first page), found by name in that list."""
+    import html
+
+    from qcpipe.report.model import Quarantined
+    from tests.conftest import demo_in_process, run_sequence
+
+    points = tmp_path / "points.txt"
+    monkeypatch.setenv("QCPIPE_TEST_COUNT_POINTS", str(points))
+    ref = demo_in_process(tmp_path / "ref")
+    monkeypatch.delenv("QCPIPE_TEST_COUNT_POINTS")
+    names = [ln.split(" ", 1)[1] for ln in points.read_text().splitlines()]
+    first_page = next(i for i, n in enumerate(names) if n.endswith(".html")) + 1        # 1-based
+    assert any("catalog" in n for n in names[:first_page - 1])
+    expected = ref.first.all_notices() + [Quarantined(q.name, q.reason).notice() for q in ref.first.quarantined]
+    # the demo's probe has a clock error and two of its files are quarantined; it has no fouling probe (a
+    # fouling notice takes the same way: a deployment's notice recorded with its dataset)
+    assert {"clock", "quarantine"} <= {n.kind for n in expected}, [n.kind for n in expected]
+
+    ws = copy_demo(tmp_path / "killed")
+    env = dict(os.environ, QCPIPE_TEST_KILL_AT=str(first_page))
+    killed = subprocess.run([sys.executable, str(IN_PROCESS), str(ws)], env=env, capture_output=True, text=True,
+                            timeout=600)
+    assert killed.returncode == -signal.SIGKILL, killed.stderr
+    assert not (tmp_path / "killed" / "demo_archive" / "reports").exists() or not any(
+        (tmp_path / "killed" / "demo_archive" / "reports").rglob("index.html"))
+
+    nxt = run_sequence("process", ws)
+    assert nxt.returncode == 0, nxt.stderr
+    lines = nxt.stdout.splitlines()
+    assert lines[0].startswith("nothing new"), lines[0]
+    report = Path(next(ln.split(": ", 1)[1] for ln in lines if ln.startswith("report: ")))
+    page = html.unescape(report.read_text(encoding="utf-8"))
+    for n in expected:
+        said = f"{n.text} (found by run 1, which stopped before showing it)"
+        assert f"  {n.where}: {said}" in lines if n.where else f"  {said}" in lines, (said, lines)
+        assert said in page, said
+
+    again = run_sequence("process", ws)
+    assert again.returncode == 0 and again.stdout.splitlines() == [lines[0]], again.stdout
