@@ -233,7 +233,7 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
                 summary.quarantined.append(Quarantined(o.raw.name, o.reason))
         by_dep = group_by_deployment([o.ingested for o in outcomes if o.ingested is not None])
         for d, files in by_dep.items():
-            summary.reruns[d] = [new_data_cause(files)]
+            summary.reruns[d] = [new_data_cause(files, ctx.inbox)]
         for p in [runner.submit("merge-deployment", job, d, files) for d, files in by_dep.items()]:
             p.result()
         touched = set(by_dep) | refresh_inputs(ctx, runner, summary, work, exclude=set(by_dep))
@@ -246,9 +246,15 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
     return summary
 
 
-def new_data_cause(files) -> str:
-    """Why a deployment is QC'd in a nightly run: the raw files it received."""
-    return f"new raw data: {len(files)} file(s) ({', '.join(sorted({f.raw.name for f in files}))})"
+def new_data_cause(files, inbox) -> str:
+    """Why a deployment is QC'd in a nightly run: the raw files it received, by their paths in the inbox
+    (downloads of one logger often share a file name)."""
+    def shown(path):
+        try:
+            return path.relative_to(inbox).as_posix()
+        except ValueError:
+            return path.name
+    return f"new raw data: {len(files)} file(s) ({', '.join(sorted(shown(f.raw.path) for f in files))})"
 
 
 def rerun(ctx: Context, runner: Runner, deployments: list[str] | None = None, work: Work | None = None,

@@ -250,6 +250,13 @@ def test_every_version_of_the_first_run_says_why(demo):
     assert {r.deployment for r in demo.summary.results} == set(demo.summary.reruns)
     for d, why in demo.summary.reruns.items():
         assert why and why[0].startswith("new raw data:"), d
+        # the count and the files named agree with the catalog's raw files of the deployment (downloads of
+        # one logger share a file name, so the files are named by their path in the inbox)
+        count, named = re.fullmatch(r"new raw data: (\d+) file\(s\) \((.*)\)", why[0]).groups()
+        named = named.split(", ")
+        in_catalog = rows(demo, "SELECT * FROM raw_files WHERE deployment = ? AND status = 'archived'", d)
+        assert int(count) == len(named) == len(set(named)) == len(in_catalog), (d, why[0])
+        assert sorted(Path(n).name for n in named) == sorted(r["original_name"] for r in in_catalog), d
 
 
 def test_the_report_says_its_links_work_in_place_and_exports_with_what_it_links(demo, tmp_path):
