@@ -94,7 +94,7 @@ def test_artifacts_inside_a_flow_run(report_case, tmp_path):
     run_json = tmp_path / "run.json"
     run_json.write_text(json.dumps(report_case.run))
     env = {k: v for k, v in os.environ.items() if k != "PREFECT_HOME"}
-    home = report_case.archive / ".prefect"        # migrated by the demo run: a faster start
+    home = report_case.archive.parent / "prefect-home"     # a Prefect home of this test's own
     done = subprocess.run([sys.executable, "-c", FLOW, str(home), str(run_json), str(report_case.index)],
                           capture_output=True, text=True, timeout=300, env=env)
     assert done.returncode == 0, done.stderr[-3000:]
