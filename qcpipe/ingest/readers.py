@@ -30,7 +30,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..arrays import joined
 from ..config.layouts import WHITESPACE, Layout, zone_of
 from ..errors import ParseError
 from ..units import same_unit
@@ -491,8 +490,8 @@ class _Part:
     """One chunk's records: times of its rows whose time was read (local when ``zone`` is a named zone,
     else UTC or the logger's clock), which of those rows are kept, and the kept rows' values."""
     ns: np.ndarray
-    line_numbers: np.ndarray
-    kept: np.ndarray
+    line_numbers: np.ndarray | None        # of the rows whose time was read, for a named zone (else None)
+    kept: np.ndarray | None                # which of those rows are kept, for a named zone (else all are)
     values: dict[str, np.ndarray]
     nonfinite: dict[str, int]
     basis: str
@@ -509,6 +508,28 @@ def _stage(stage: int, func, *args):
         return func(*args)
     except ParseError as err:
         raise _Refused(stage, str(err)) from None
+
+
+class _Column:
+    """A 1-d array filled chunk by chunk into room reserved for the length expected, grown by half when
+    short: a big file's values are copied once, never held twice, and room never written stays virtual."""
+
+    def __init__(self, dtype):
+        self.buf, self.n = np.empty(0, dtype), 0
+
+    def add(self, piece: np.ndarray, expect: int) -> None:
+        end = self.n + piece.size
+        if end > self.buf.size:
+            room = np.empty(max(end, expect, self.buf.size + self.buf.size // 2), self.buf.dtype)
+            room[:self.n] = self.buf[:self.n]
+            self.buf = room
+        self.buf[self.n:end] = piece
+        self.n = end
+
+    def array(self) -> np.ndarray:
+        out = self.buf[:self.n]
+        self.buf = np.empty(0, self.buf.dtype)
+        return out
 
 
 def _read_chunk(rd: _Reading, rec_lines: list[str], line_numbers: np.ndarray, first: bool,
@@ -596,8 +617,7 @@ def _read_chunk(rd: _Reading, rec_lines: list[str], line_numbers: np.ndarray, fi
     if isinstance(zone, int):
         ns = ns - zone * 1_000_000_000
     if zone is None or isinstance(zone, int):      # nothing left to do across chunks
-        return _Part(ns[kept], line_numbers[:0], kept[kept], values, nonfinite, basis, label, fixed, zone, zone_text,
-                     refused)
+        return _Part(ns[kept], None, None, values, nonfinite, basis, label, fixed, zone, zone_text, refused)
     return _Part(ns, line_numbers[good], kept, values, nonfinite, basis, label, fixed, zone, zone_text, refused)
 
 
@@ -656,16 +676,23 @@ def _read_lines(path: Path, lines, layout: Layout, layout_name: str, name: str, 
     skip_rx = re.compile("|".join(f"(?:{p})" for p in layout.skip_lines)) if layout.skip_lines else None
     skipped: list[tuple[int, str]] = []
     rd: _Reading | None = None
-    parts: list[_Part] = []
+    p0: _Part | None = None                        # the first chunk's records (time basis and zone)
     refused: _Refused | None = None
     rows_after_fields = False
+    expect = 0
+    times, kept_rows, line_numbers = _Column(np.int64), _Column(bool), _Column(np.int64)
+    columns = {var: _Column(np.float64) for var in layout.variables}
+    nonfinite = dict.fromkeys(layout.variables, 0)
 
     def chunk(rec_lines: list[str], numbers: list[int], last: bool) -> None:
-        nonlocal rd, refused, rows_after_fields
+        nonlocal rd, p0, refused, rows_after_fields, expect
         first = rd is None
         if first:
             n_fields = len(names) if names is not None else len(_names_row(rec_lines[0], layout, name))
             rd = _Reading(layout, layout_name, name, hv, names, n_fields, counts, skipped)
+            # records the file holds if its lines are like the first chunk's: room reserved for them
+            per_line = sum(map(len, rec_lines)) / len(rec_lines) + 1
+            expect = int(path.stat().st_size / per_line * 1.05) + chunk_lines
         try:
             part = _read_chunk(rd, rec_lines, np.array(numbers), first, last)
         except _Refused as why:
@@ -677,9 +704,15 @@ def _read_lines(path: Path, lines, layout: Layout, layout_name: str, name: str, 
         if why_not is not None and (refused is None or why_not.stage < refused.stage):
             refused = why_not
         if part is not None:
-            if refused is not None:
-                part.values = {}                   # the file is refused: only a named zone's times still count
-            parts.append(part)
+            p0 = p0 or part
+            times.add(part.ns, expect)
+            if part.kept is not None:              # a named zone: times are put on UTC at the end
+                kept_rows.add(part.kept, expect)
+                line_numbers.add(part.line_numbers, expect)
+            if refused is None:                    # (once refused, the values are not needed)
+                for var in columns:
+                    columns[var].add(part.values.pop(var), expect)
+                    nonfinite[var] += part.nonfinite[var]
         skipped.sort()
         del skipped[LISTED_LINES:]                 # the first LISTED_LINES by line number are listed
 
@@ -713,25 +746,19 @@ def _read_lines(path: Path, lines, layout: Layout, layout_name: str, name: str, 
         raise ParseError(f"{name}: no data rows after the header; re-download the file")
     if refused is not None and refused.stage < _ZONE_GAP:
         raise ParseError(refused.message)
-    p0 = parts[0] if parts else None
-    if p0.zone is not None and not isinstance(p0.zone, int):
+    ns = times.array()
+    if p0.kept is not None:
         # a named zone: its repeated hour is told apart from the order of the whole file's times
-        ns = joined([p.ns for p in parts])
-        kept = joined([p.kept for p in parts])
-        numbers_good = joined([p.line_numbers for p in parts])
-        ns = _local_to_utc(ns, p0.zone, repr(p0.zone_text), name, numbers_good, counts)[kept]
-        del numbers_good, kept
+        ns = _local_to_utc(ns, p0.zone, repr(p0.zone_text), name, line_numbers.array(), counts)[kept_rows.array()]
     if refused is not None:
         raise ParseError(refused.message)
-    if p0.zone is None or isinstance(p0.zone, int):
-        ns = joined([p.ns for p in parts])
     if not ns.size:
         raise ParseError(f"{name}: no readable records (every one was refused, see bad_lines); correct the file "
                          "or the logger layout")
     values, units = {}, {}
     for var, spec in layout.variables.items():
-        counts[f"{var}_nonfinite"] = sum(p.nonfinite[var] for p in parts)
-        values[var], units[var] = joined([p.values.pop(var) for p in parts]), spec.units
+        counts[f"{var}_nonfinite"] = nonfinite[var]
+        values[var], units[var] = columns[var].array(), spec.units
     skipped.sort()
     return RawTable(path, layout_name, serial, ns.view("datetime64[ns]"), values, units, counts,
                     time_basis=p0.basis, time_zone=p0.label, zone_offset_s=p0.fixed, header_values=hv,
