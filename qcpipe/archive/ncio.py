@@ -96,8 +96,14 @@ def write_columns_atomic(final: str | Path, time: np.ndarray, columns: dict[str,
                 nc.setncattr(key, value)
             for a in range(0, ns.size, block):
                 tv[a:a + block] = ns[a:a + block] / 1e9
-                for name, (values, _) in columns.items():
-                    out[name][a:a + block] = values[a:a + block]
+            for name, (values, _) in columns.items():
+                # whole chunks, one variable at a time, through no chunk cache: each chunk is deflated and
+                # written as it is filled instead of every variable's chunks waiting in a cache
+                var = out[name]
+                var.set_var_chunk_cache(size=0, nelems=1, preemption=1.0)
+                step = (var.chunking() or [block])[0] if var.chunking() != "contiguous" else block
+                for a in range(0, ns.size, step):
+                    var[a:a + step] = values[a:a + step]
     return final
 
 
