@@ -689,6 +689,14 @@ class StagePeaks:
             return False
 
     @staticmethod
+    def rss_mb() -> float:
+        """Resident memory of this process now (MB)."""
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmRSS:"):
+                return int(line.split()[1]) / 1024.0
+        return float("nan")
+
+    @staticmethod
     def _hwm_mb() -> float:
         for line in Path("/proc/self/status").read_text().splitlines():
             if line.startswith("VmHWM:"):
@@ -737,6 +745,10 @@ def case_big_file(size_mb: int) -> dict:
         ctx = load_context(tmp / "sample_raw" / "workspace.toml")
         raw = RawFile(raw_path, "0" * 64, size)
         peaks = StagePeaks()
+        import netCDF4  # noqa: F401  (the libraries the read and the write use, loaded before the baseline)
+        import qcpipe.ingest.readers  # noqa: F401
+
+        rss_before = StagePeaks.rss_mb()           # the libraries and the configuration, before the file
         start = time.perf_counter()
         got = peaks.run("read, UTC, trim (ingest_file)", lambda: ingest_file(raw, ctx.register, ctx.layouts))
         store = peaks.run("merge, write store (merge_new_files)",
@@ -745,7 +757,7 @@ def case_big_file(size_mb: int) -> dict:
         rows, kept = got.counts["rows_read"], int(store.time.size)
         to_store_rss = process_usage()["peak_rss_mb"]
         del got, store
-    return {"file_mb": size / 1e6, "rows": rows, "stored": kept, "to_store_s": to_store_s,
+    return {"file_mb": size / 1e6, "rows": rows, "stored": kept, "to_store_s": to_store_s, "rss_before_mb": rss_before,
             "to_store_peak_rss_mb": to_store_rss, "stages": peaks.stages}
 
 
@@ -819,13 +831,18 @@ def big_file_rows(raw: dict, skip_big: bool) -> list[dict]:
             continue
         print(f"  running bigfile:{size_mb} ...", file=sys.stderr, flush=True)
         big = done[size_mb] = raw[f"bigfile:{size_mb}"] = child(f"bigfile:{size_mb}", N_SAMPLES)
-        share = big["to_store_peak_rss_mb"] * 1.048576 / big["file_mb"]      # MiB of memory per MB of file
+        # MiB of memory per MB of file: the whole process's peak at 1 GB (the issue's target), above what the
+        # process held before reading (libraries, configuration: about 250 MB) at 100 MB, where that dominates
+        whole = size_mb >= 1000
+        used = big["to_store_peak_rss_mb"] - (0.0 if whole else big["rss_before_mb"])
+        share = used * 1.048576 / big["file_mb"]
         stages = "; ".join(f"{k} {v['peak_rss_mb']:.0f} MB" for k, v in big["stages"].items()
                            if v["peak_rss_mb"] is not None)
+        what = "peak RSS" if whole else "peak RSS above the RSS before the read"
         rows.append(_row(f"ingest-to-store, generated levelgauge file of {big['file_mb']:.0f} MB "
-                         f"({big['rows']:,} rows): peak RSS / file size",
-                         f"{share:.2f}x ({big['to_store_peak_rss_mb']:.0f} MB in {_fmt_s(big['to_store_s'])}; "
-                         f"stage peaks: {stages})",
+                         f"({big['rows']:,} rows): {what} / file size",
+                         f"{share:.2f}x ({big['to_store_peak_rss_mb']:.0f} MB peak, {big['rss_before_mb']:.0f} MB "
+                         f"before; {_fmt_s(big['to_store_s'])}; stage peaks: {stages})",
                          f"<= {TARGET_BIG_RSS_SHARE:g}x", share <= TARGET_BIG_RSS_SHARE, big["peak_rss_mb"],
                          ratio=share))
     if len(done) == 2:
