@@ -689,17 +689,10 @@ class StagePeaks:
             return False
 
     @staticmethod
-    def rss_mb() -> float:
-        """Resident memory of this process now (MB)."""
+    def status_mb(key: str) -> float:
+        """A memory line of /proc/self/status in MB: "VmRSS" (resident now), "VmHWM" (peak since the reset)."""
         for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1]) / 1024.0
-        return float("nan")
-
-    @staticmethod
-    def _hwm_mb() -> float:
-        for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmHWM:"):
+            if line.startswith(f"{key}:"):
                 return int(line.split()[1]) / 1024.0
         return float("nan")
 
@@ -708,7 +701,7 @@ class StagePeaks:
         start = time.perf_counter()
         out = func()
         self.stages[name] = {"seconds": time.perf_counter() - start,
-                             "peak_rss_mb": self._hwm_mb() if reset else None}
+                             "peak_rss_mb": self.status_mb("VmHWM") if reset else None}
         return out
 
 
@@ -748,7 +741,7 @@ def case_big_file(size_mb: int) -> dict:
         import netCDF4  # noqa: F401  (the libraries the read and the write use, loaded before the baseline)
         import qcpipe.ingest.readers  # noqa: F401
 
-        rss_before = StagePeaks.rss_mb()           # the libraries and the configuration, before the file
+        rss_before = StagePeaks.status_mb("VmRSS")           # the libraries and the configuration, before the file
         start = time.perf_counter()
         got = peaks.run("read, UTC, trim (ingest_file)", lambda: ingest_file(raw, ctx.register, ctx.layouts))
         store = peaks.run("merge, write store (merge_new_files)",
