@@ -708,7 +708,8 @@ class StagePeaks:
 def case_big_file(size_mb: int) -> dict:
     """Ingest-to-store of one generated raw file of ``size_mb`` MB through the real run steps
     (``ingest_file``, ``merge_new_files`` into a copy of the demo workspace whose pier gauge is redeployed
-    for 2027-2029); with ``full`` sizes (100 MB) also conversion, QC, CF build and write (``qc_deployment``)."""
+    for 2027-2028); up to 100 MB also the rest, stage by stage, as ``case_ingest`` does it (conversion, QC
+    with the demo rule set, CF build, write): their peaks are not bounded yet (benchmarks/README.md)."""
     import shutil
 
     from qcpipe.ingest.discover import RawFile
@@ -749,9 +750,36 @@ def case_big_file(size_mb: int) -> dict:
         to_store_s = time.perf_counter() - start
         rows, kept = got.counts["rows_read"], int(store.time.size)
         to_store_rss = process_usage()["peak_rss_mb"]
-        del got, store
+        del got
+        if size_mb <= 100:
+            _after_store(ctx, store, peaks, tmp / "dataset.nc")
+        del store
     return {"file_mb": size / 1e6, "rows": rows, "stored": kept, "to_store_s": to_store_s, "rss_before_mb": rss_before,
             "to_store_peak_rss_mb": to_store_rss, "stages": peaks.stages}
+
+
+def _after_store(ctx, store, peaks: StagePeaks, out_path: Path) -> None:
+    """Conversion, QC, CF build and write of a store, each a stage of ``peaks`` (as in ``case_ingest``)."""
+    from qcpipe.apply_rules import apply_rule_set
+    from qcpipe.archive.cf import build_cf_dataset
+    from qcpipe.archive.ncio import write_dataset_atomic
+    from qcpipe.convert.by_kind import physical_from_raw
+
+    register = ctx.register
+    dep = register.deployment_by_id(store.deployment)
+    station = register.station_by_id(dep.station)
+    site = register.site_by_id(station.site)
+    conv = peaks.run("conversion", lambda: physical_from_raw(store.kind, store.values, store.units, deployment=dep,
+                                                             station=station))
+    flags = peaks.run("QC", lambda: apply_rule_set(conv.variables, store.time, ctx.rules, station.id))
+    provenance = dict(rules_name=ctx.rules.name, rules_sha256=ctx.rules.sha256, register_sha256=register.sha256,
+                      raw_files=[(n, "0" * 64) for n in store.names], software_version="bench", notes=conv.notes,
+                      extra_attrs=dict(conv.attrs))
+    ds, enc = peaks.run("CF build", lambda: build_cf_dataset(
+        time=store.time, variables=conv.variables, flags=flags, immersion=conv.immersion, station=station, site=site,
+        deployment=dep, register_info=register.info, provenance=provenance, version=1, history="qcpipe benchmark",
+        raw_units=store.units))
+    peaks.run("CF write", lambda: write_dataset_atomic(ds, out_path, enc))
 
 
 def run_case(name: str, pandas_samples: int) -> dict:
@@ -836,8 +864,10 @@ def big_file_rows(raw: dict, skip_big: bool) -> list[dict]:
                          f"({big['rows']:,} rows): {what} / file size",
                          f"{share:.2f}x ({big['to_store_peak_rss_mb']:.0f} MB peak, {big['rss_before_mb']:.0f} MB "
                          f"before; {_fmt_s(big['to_store_s'])}; stage peaks: {stages})",
-                         f"<= {TARGET_BIG_RSS_SHARE:g}x", share <= TARGET_BIG_RSS_SHARE, big["peak_rss_mb"],
-                         ratio=share))
+                         f"<= {TARGET_BIG_RSS_SHARE:g}x" if whole else "none (the 1 GB row has the target)",
+                         share <= TARGET_BIG_RSS_SHARE, big["peak_rss_mb"], ratio=share))
+        if not whole:                    # fixed costs (the parser's working set, lazy imports) dominate here
+            rows[-1]["verdict"] = "INFO"
     if len(done) == 2:
         small, large = (done[k] for k in BIG_FILE_SIZES_MB)
         ratio = (large["to_store_s"] / large["rows"]) / (small["to_store_s"] / small["rows"])
