@@ -1010,7 +1010,7 @@ def print_table(rows, agree, pandas_samples, total, cpu_shares) -> None:
         if r["verdict"] == "MISS" and miss_reason(r["case"]):
             print(f"why '{r['case']}' misses: {miss_reason(r['case'])}")
     starved = {name: share for name, share in cpu_shares.items() if share < 0.8}
-    print(f"{len(rows) - misses} PASS, {misses} MISS; best of {REPEATS} repetitions per timing; "
+    print(f"{sum(r['verdict'] == 'PASS' for r in rows)} PASS, {misses} MISS; best of {REPEATS} repetitions per timing; "
           f"each case in a fresh process (peak RSS of that process)")
     if pandas_samples != N_SAMPLES:
         print(f"pandas references ran on {pandas_samples:,} samples and were scaled linearly to {N_SAMPLES:,}")
