@@ -209,3 +209,11 @@ def times_and_state(times, state, *, func: str) -> tuple[np.ndarray, np.ndarray]
     same_shape(s, t, func=func, names=("state", "times"))
     check_non_decreasing(t, func=func)
     return t, s
+
+
+def joined(pieces: list[np.ndarray]) -> np.ndarray:
+    """The arrays of ``pieces`` end to end, without a copy when there is one; the list is emptied, so each
+    piece can be freed once copied (big files: the peak is the result plus what is left of the pieces)."""
+    out = pieces[0] if len(pieces) == 1 else np.concatenate(pieces)
+    pieces.clear()
+    return out

@@ -82,13 +82,6 @@ def write_text_atomic(final: str | Path, text: str) -> Path:
     return Path(final)
 
 
-def write_bytes_atomic(final: str | Path, data: bytes) -> Path:
-    """Write ``data`` to ``final`` atomically."""
-    with atomic_path(final) as tmp:
-        tmp.write_bytes(data)
-    return Path(final)
-
-
 def copy_atomic(src: str | Path, final: str | Path, *, sha256: str | None = None) -> Path:
     """Copy ``src`` to ``final`` atomically (the source is only read).
 

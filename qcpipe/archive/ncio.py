@@ -58,6 +58,55 @@ def write_dataset_atomic(ds: xarray.Dataset, final: str | Path, encoding: dict |
     return final
 
 
+#: the time variable of a file written by ``write_columns_atomic``: what xarray writes for datetime64[ns]
+#: times with the encoding {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}
+COLUMN_TIME_UNITS = "seconds since 1970-01-01T00:00:00+00:00"
+COLUMN_TIME_CALENDAR = "proleptic_gregorian"
+
+
+def write_columns_atomic(final: str | Path, time: np.ndarray, columns: dict[str, tuple[np.ndarray, dict]],
+                         attrs: dict, *, block: int = 1 << 20) -> Path:
+    """Write one ``time`` dimension and its columns to NetCDF-4 at ``final`` slice by slice (so memory
+    stays one block whatever the length), via a temporary file and a rename.
+
+    The file is the one ``xarray.Dataset.to_netcdf`` writes for ``time`` (datetime64[ns]) encoded as
+    float64 seconds since 1970 UTC and each column with ``{"zlib": True, "complevel": 4}``: time
+    contiguous with ``_FillValue`` NaN, ``units`` and ``calendar``; columns deflated at level 4 with
+    shuffle in netCDF's default chunks, float columns with ``_FillValue`` NaN, then their ``attrs``
+    (tests/ingest/test_chunked_read.py compares the demo's stores with the recorded digest).
+    """
+    import netCDF4
+
+    final = Path(final)
+    ns = np.asarray(time, dtype="datetime64[ns]").view(np.int64)
+    with NC_LOCK, atomic_path(final) as tmp:
+        with netCDF4.Dataset(tmp, "w", format="NETCDF4") as nc:
+            nc.createDimension("time", ns.size)
+            out = {}
+            for name, (values, var_attrs) in columns.items():
+                fill = np.nan if values.dtype.kind == "f" else False
+                out[name] = nc.createVariable(name, values.dtype, ("time",), zlib=True, complevel=4, shuffle=True,
+                                              fill_value=fill)
+                for key, value in var_attrs.items():
+                    out[name].setncattr(key, value)
+            tv = nc.createVariable("time", "f8", ("time",), fill_value=np.nan, contiguous=True)
+            tv.setncattr("units", COLUMN_TIME_UNITS)
+            tv.setncattr("calendar", COLUMN_TIME_CALENDAR)
+            for key, value in attrs.items():
+                nc.setncattr(key, value)
+            for a in range(0, ns.size, block):
+                tv[a:a + block] = ns[a:a + block] / 1e9
+            for name, (values, _) in columns.items():
+                # whole chunks, one variable at a time, through no chunk cache: each chunk is deflated and
+                # written as it is filled instead of every variable's chunks waiting in a cache
+                var = out[name]
+                var.set_var_chunk_cache(size=0, nelems=1, preemption=1.0)
+                step = (var.chunking() or [block])[0] if var.chunking() != "contiguous" else block
+                for a in range(0, ns.size, step):
+                    var[a:a + step] = values[a:a + step]
+    return final
+
+
 def read_dataset(path: str | Path, **kwargs) -> xarray.Dataset:
     """Open, load fully into memory and close a NetCDF file (so no handle outlives the lock)."""
     with NC_LOCK:

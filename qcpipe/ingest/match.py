@@ -7,6 +7,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -39,7 +40,8 @@ class IngestedFile:
     notes: list[str] = field(default_factory=list)   # what a person should look at
 
 
-def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_CLOCK) -> tuple[np.ndarray, float]:
+def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_CLOCK,
+            out: np.ndarray | None = None) -> tuple[np.ndarray, float]:
     """UTC times of a file for deployment ``dep``, drift-corrected, and the clock error at the check (s).
 
     Stamps on the logger's clock (``time_basis`` "logger_clock") are moved by the
@@ -47,10 +49,11 @@ def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_C
     said its zone) are not moved again.  Either way the drift measured by the
     deployment's clock check is removed: the check's ``logger_time`` is what the
     logger's display showed, read with the register's ``clock_offset``.  Last, a
-    confirmed ``clock_correction`` is subtracted (:func:`_corrected`).
+    confirmed ``clock_correction`` is subtracted (:func:`_corrected`).  ``out`` (may be
+    ``logger_time`` itself) receives the times instead of a new array.
     """
     offset = dep.offset_seconds if time_basis == LOGGER_CLOCK else 0.0
-    t = utc_from_logger_time(logger_time, offset_s=offset)
+    t = utc_from_logger_time(logger_time, offset_s=offset, out=out)
     if dep.clock_check is None:
         return _corrected(t, dep), 0.0
     check_logger = utc_from_logger_time(np.array([np.datetime64(dep.clock_check.logger_time, "ns")]),
@@ -60,7 +63,8 @@ def _to_utc(logger_time: np.ndarray, dep: Deployment, time_basis: str = LOGGER_C
     clock_set = dep.clock_set or dep.start
     t0 = np.datetime64(clock_set.replace(tzinfo=None) - clock_set.utcoffset(), "ns")
     err = float((check_logger - ref).astype(np.int64)) / 1e9
-    return _corrected(drift_corrected(t, clock_set=t0, check_logger=check_logger, check_reference=ref), dep), err
+    return _corrected(drift_corrected(t, clock_set=t0, check_logger=check_logger, check_reference=ref, out=t),
+                      dep), err
 
 
 def _corrected(t: np.ndarray, dep: Deployment) -> np.ndarray:
@@ -71,7 +75,7 @@ def _corrected(t: np.ndarray, dep: Deployment) -> np.ndarray:
     """
     if dep.clock_correction is None:
         return t
-    return utc_from_logger_time(t, offset_s=dep.correction_seconds)
+    return utc_from_logger_time(t, offset_s=dep.correction_seconds, out=t)
 
 
 def _naive_utc(t) -> np.datetime64:
@@ -103,7 +107,7 @@ def file_provenance(table: RawTable) -> dict:
     return out
 
 
-def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts, data: bytes | None = None) -> RawTable:
+def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts, read_from: Path | None = None) -> RawTable:
     name = shown_name(raw.name)
     candidates = [(n, lay) for n, lay in layouts.layouts.items() if lay.reads(raw.name)]
     if not candidates:
@@ -113,7 +117,7 @@ def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts, data: bytes | None 
     errors = []
     for lay_name, lay in candidates:
         try:
-            return read_raw_file(raw.path, lay, lay_name, data)
+            return read_raw_file(raw.path, lay, lay_name, read_from=read_from)
         except ParseError as err:
             errors.append(str(err))
     if len(errors) == 1:
@@ -125,15 +129,15 @@ def _read_with_layouts(raw: RawFile, layouts: LoadedLayouts, data: bytes | None 
 
 
 def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
-                data: bytes | None = None) -> IngestedFile:
+                read_from: Path | None = None) -> IngestedFile:
     """Parse ``raw``, find its instrument and deployment, convert times to UTC and trim.
 
-    ``data``: the file's bytes, when the caller has read (and checked) them; else the file is read here.
+    ``read_from``: a copy of the file, made and checked by the caller, to read instead of ``raw.path``.
 
     Raises FileRejected (a one-line reason naming file, line or key and what
     to do) when the file cannot be read or matches no deployment.
     """
-    table = _read_with_layouts(raw, layouts, data)
+    table = _read_with_layouts(raw, layouts, read_from)
     name = shown_name(raw.name)
     inst = register.instrument_by_serial(table.serial)
     if inst is None:
@@ -148,7 +152,8 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
                            f"{register.path.name}; add one with station, start and end")
     best = None
     for dep in deps:
-        t, err = _to_utc(table.logger_time, dep, table.time_basis)
+        # one deployment: its times replace the file's own in place (a big file holds one array of times)
+        t, err = _to_utc(table.logger_time, dep, table.time_basis, out=table.logger_time if len(deps) == 1 else None)
         inside = window_mask(t, start=_naive_utc(dep.start), end=_naive_utc(dep.end))
         n_in = int(inside.sum())
         if best is None or n_in > best[0]:
@@ -165,11 +170,17 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
     counts["post_recovery"] = int(np.count_nonzero(t > end))
     counts["in_deployment"] = n_in
     # records in time order (stable: repeated times keep the file's order for the merge)
-    keep = np.flatnonzero(inside)
-    ti = t[keep].astype(np.int64)
-    counts["out_of_order"] = int(np.count_nonzero(np.diff(ti) < 0))
-    if counts["out_of_order"]:
-        keep = keep[np.argsort(ti, kind="stable")]
+    table.logger_time = None                 # the file's own times are not needed any more (big files)
+    if n_in == t.size:                       # every record in the deployment: no copy unless out of order
+        counts["out_of_order"] = int(np.count_nonzero(t[1:] < t[:-1]))
+        keep = np.argsort(t, kind="stable") if counts["out_of_order"] else None
+    else:
+        keep = np.flatnonzero(inside)
+        ti = t[keep].astype(np.int64)
+        counts["out_of_order"] = int(np.count_nonzero(np.diff(ti) < 0))
+        if counts["out_of_order"]:
+            keep = keep[np.argsort(ti, kind="stable")]
+    del inside, best
     provenance = file_provenance(table)
     if counts["out_of_order"]:
         provenance["out_of_order"] = counts["out_of_order"]
@@ -179,8 +190,8 @@ def ingest_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
         counts["clock_offset_not_applied"] = 1
         provenance["clock_offset_not_applied"] = dep.clock_offset
     return IngestedFile(raw=raw, layout=table.layout_name, serial=inst.serial, kind=inst.kind,
-                        station=dep.station, deployment=dep.id, time=t[keep],
-                        values={k: v[keep] for k, v in table.values.items()}, units=table.units,
+                        station=dep.station, deployment=dep.id, time=t if keep is None else t[keep],
+                        values={k: v if keep is None else v[keep] for k, v in table.values.items()}, units=table.units,
                         counts=counts, clock_correction_s=err, provenance=provenance, notes=notes)
 
 

@@ -13,16 +13,22 @@ import numpy as np
 from ..arrays import NS
 
 
-def utc_from_logger_time(logger_time, *, offset_s: float) -> np.ndarray:
+#: samples per block of the element-wise time corrections (bounds their temporaries)
+BLOCK = 1 << 20
+
+
+def utc_from_logger_time(logger_time, *, offset_s: float, out: np.ndarray | None = None) -> np.ndarray:
     """UTC from a logger clock that runs ``offset_s`` seconds ahead of UTC.
 
-    ``utc = logger_time - offset``  (an offset of "+01:00" is 3600 s).
+    ``utc = logger_time - offset``  (an offset of "+01:00" is 3600 s).  ``out`` (datetime64[ns], may be
+    ``logger_time`` itself) receives the result instead of a new array.
     """
     t = np.asarray(logger_time, dtype="datetime64[ns]")
-    return t - np.timedelta64(int(round(offset_s * NS)), "ns")
+    return np.subtract(t, np.timedelta64(int(round(offset_s * NS)), "ns"), out=out)
 
 
-def drift_corrected(t_utc, *, clock_set, check_logger, check_reference) -> np.ndarray:
+def drift_corrected(t_utc, *, clock_set, check_logger, check_reference,
+                    out: np.ndarray | None = None) -> np.ndarray:
     """Remove a linear clock drift measured by a clock check at recovery.
 
     The logger clock is taken as exact at ``clock_set`` (UTC) and as
@@ -33,9 +39,10 @@ def drift_corrected(t_utc, *, clock_set, check_logger, check_reference) -> np.nd
         t_true = t - e * (t - clock_set) / (check_logger - clock_set)
 
     Common practice for logger clocks (no source).  All arguments are
-    datetime64[ns]; returns datetime64[ns].
+    datetime64[ns]; returns datetime64[ns] (in ``out`` when given, which may be ``t_utc``
+    itself).  Computed block by block, so its temporaries stay small whatever the length.
     """
-    t = np.asarray(t_utc, dtype="datetime64[ns]").astype(np.int64)
+    t_all = np.asarray(t_utc, dtype="datetime64[ns]").view(np.int64)
     t0 = np.datetime64(clock_set, "ns").astype(np.int64)
     tl = np.datetime64(check_logger, "ns").astype(np.int64)
     tr = np.datetime64(check_reference, "ns").astype(np.int64)
@@ -43,17 +50,20 @@ def drift_corrected(t_utc, *, clock_set, check_logger, check_reference) -> np.nd
     if span <= 0:
         raise ValueError("clock check must be after the time the clock was set")
     err = float(tl - tr)
-    with np.errstate(over="ignore"):
-        d = t - t0                                   # exact, but wraps more than 292 years from clock_set
-    approx = t.astype(np.float64) - float(t0)
-    d = np.where(np.abs(approx) < 9.0e18, d.astype(np.float64), approx)
-    corr = np.rint(d * (err / span))
-    # saturate instead of wrapping round: such samples are centuries outside any deployment
-    lo, hi = np.iinfo(np.int64).min + 1, np.iinfo(np.int64).max
-    out = t.astype(np.float64) - corr
-    safe = (out > -9.2e18) & (out < 9.2e18)
-    res = np.where(safe, t - np.where(safe, corr, 0).astype(np.int64), np.where(out < 0, lo, hi))
-    return res.astype("datetime64[ns]")
+    res = np.empty(t_all.shape, np.int64) if out is None else out.view(np.int64)
+    for a in range(0, t_all.size, BLOCK):
+        t = t_all[a:a + BLOCK]
+        with np.errstate(over="ignore"):
+            d = t - t0                               # exact, but wraps more than 292 years from clock_set
+        approx = t.astype(np.float64) - float(t0)
+        d = np.where(np.abs(approx) < 9.0e18, d.astype(np.float64), approx)
+        corr = np.rint(d * (err / span))
+        # saturate instead of wrapping round: such samples are centuries outside any deployment
+        lo, hi = np.iinfo(np.int64).min + 1, np.iinfo(np.int64).max
+        moved = t.astype(np.float64) - corr
+        safe = (moved > -9.2e18) & (moved < 9.2e18)
+        res[a:a + BLOCK] = np.where(safe, t - np.where(safe, corr, 0).astype(np.int64), np.where(moved < 0, lo, hi))
+    return res.view("datetime64[ns]")
 
 
 def window_mask(times, *, start, end) -> np.ndarray:
@@ -91,6 +101,12 @@ def merge_records(time, values: dict[str, np.ndarray], source, *,
     """
     t = np.asarray(time, dtype="datetime64[ns]")
     src = np.asarray(source, dtype=np.int16)
+    if t.size == 1 or (t.size > 1 and bool(np.all(t[1:] > t[:-1]))):
+        # strictly increasing already: nothing to sort, drop or mark, so no copy of the records
+        vals = {k: np.asarray(v, dtype=np.float64) for k, v in values.items()}
+        marks = {k: np.asarray(conflict[k], dtype=bool) if conflict and k in conflict else np.zeros(t.size, bool)
+                 for k in vals}
+        return Merged(t, vals, src, marks)
     order = np.lexsort((src, t))       # by time, then by source (earlier downloads first)
     reordered = int(np.count_nonzero(np.diff(t.astype(np.int64)) < 0))
     t = t[order]

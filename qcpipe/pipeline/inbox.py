@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import errno
+import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -10,7 +12,8 @@ from .. import progress
 from ..config.layouts import LoadedLayouts
 from ..config.register import LoadedRegister
 from ..errors import ConfigError
-from ..files import copy_atomic, write_bytes_atomic, write_text_atomic
+from ..faults import crash_point
+from ..files import copy_atomic, storage_error, write_text_atomic
 from ..ingest.discover import InboxSkip, RawFile, discover_files
 from ..report.model import Quarantined
 from .context import Context
@@ -65,13 +68,13 @@ class FileOutcome:
 
 
 def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts,
-                  data: bytes | None = None) -> FileOutcome:
+                  read_from: Path | None = None) -> FileOutcome:
     """Ingest one file; a rejected file comes back with its one-line reason (never raises).
-    ``data``: the file's bytes, already read (else the file is read here)."""
+    ``read_from``: a checked copy of the file to read instead of ``raw.path``."""
     from ..ingest.match import FileRejected, ingest_file
 
     try:
-        return FileOutcome(raw, ingested=ingest_file(raw, register, layouts, data))
+        return FileOutcome(raw, ingested=ingest_file(raw, register, layouts, read_from))
     except FileRejected as err:
         return FileOutcome(raw, reason=str(err))
     finally:
@@ -81,29 +84,72 @@ def read_one_file(raw: RawFile, register: LoadedRegister, layouts: LoadedLayouts
 def read_inbox_file(ctx: Context, raw: RawFile) -> FileOutcome:
     """Read a new inbox file once, and use it only if it still has the content it was listed with.
 
-    The bytes read are hashed: a file that vanished or whose SHA-256 is no longer ``raw.sha256``
-    comes back skipped (:class:`InboxSkip`), never raising.  Otherwise the same bytes are parsed
-    and kept in the archive at once (the raw copy of an ingested file, the quarantine copy of a
-    rejected one, written atomically unless already there), so no later step reads the inbox
-    file again and every copy is exactly what its hash names."""
-    import hashlib
-
+    The file is copied into the archive's staging folder (``<archive>/.staging``) and hashed as it is
+    copied, a block at a time (memory bounded whatever the file's size).  A file that vanished, or whose
+    copy's SHA-256 is no longer ``raw.sha256``, comes back skipped (:class:`InboxSkip`), never raising.
+    Otherwise the copy is parsed and then renamed into place: the raw copy of an ingested file, the
+    quarantine copy of a rejected one (unless already there).  So no later step reads the inbox file
+    again, and every copy is exactly what its hash names."""
     rel = str(raw.path.relative_to(ctx.inbox)) if raw.path.is_relative_to(ctx.inbox) else raw.name
+    staged = None
     try:
-        data = raw.path.read_bytes()
-    except FileNotFoundError:
-        return FileOutcome(raw, skipped=InboxSkip(rel, "vanished"))
-    except OSError as err:
-        return FileOutcome(raw, skipped=InboxSkip(rel, "unreadable", err.strerror or type(err).__name__))
-    if hashlib.sha256(data).hexdigest() != raw.sha256:
-        return FileOutcome(raw, skipped=InboxSkip(rel, "changed", f"{raw.size} -> {len(data)} bytes"))
-    outcome = read_one_file(raw, ctx.register, ctx.layouts, data)
-    f = outcome.ingested
-    dest = (ctx.paths.raw_copy(f.station, f.deployment, raw.sha256, raw.name) if f is not None
-            else ctx.paths.quarantine(raw.sha256, raw.name))
-    if not dest.exists():
-        write_bytes_atomic(dest, data)
-    return outcome
+        try:
+            staged, sha, size = _stage_copy(raw.path, ctx.paths.root / STAGING_DIR)
+        except FileNotFoundError:
+            return FileOutcome(raw, skipped=InboxSkip(rel, "vanished"))
+        except OSError as err:
+            if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+                raise storage_error(err, ctx.paths.root / STAGING_DIR) from None
+            return FileOutcome(raw, skipped=InboxSkip(rel, "unreadable", err.strerror or type(err).__name__))
+        if sha != raw.sha256:
+            return FileOutcome(raw, skipped=InboxSkip(rel, "changed", f"{raw.size} -> {size} bytes"))
+        outcome = read_one_file(raw, ctx.register, ctx.layouts, read_from=staged)
+        f = outcome.ingested
+        dest = (ctx.paths.raw_copy(f.station, f.deployment, raw.sha256, raw.name) if f is not None
+                else ctx.paths.quarantine(raw.sha256, raw.name))
+        if not dest.exists():
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            crash_point(f"before-rename {dest.name}")
+            os.replace(staged, dest)
+        return outcome
+    finally:
+        if staged is not None and staged.exists():
+            staged.unlink()
+
+
+#: the archive's folder for inbox files being read (copied and hashed, not yet kept); emptied at each run's start
+STAGING_DIR = ".staging"
+
+
+def _stage_copy(src: Path, folder: Path, block: int = 1 << 20) -> tuple[Path, str, int]:
+    """Copy ``src`` into ``folder`` under a temporary name, hashing the bytes copied; flushed to disk.
+    Returns the copy, its SHA-256 and its size."""
+    import hashlib
+    import tempfile
+
+    folder.mkdir(parents=True, exist_ok=True)
+    h, size = hashlib.sha256(), 0
+    with open(src, "rb") as fin:
+        fd, tmp = tempfile.mkstemp(prefix=".", suffix=".tmp", dir=folder)
+        with os.fdopen(fd, "wb") as fout:
+            while chunk := fin.read(block):
+                h.update(chunk)
+                size += len(chunk)
+                fout.write(chunk)
+            fout.flush()
+            os.fsync(fout.fileno())
+    return Path(tmp), h.hexdigest(), size
+
+
+def clear_staging(ctx: Context) -> None:
+    """Remove what a killed run left in the staging folder (call under the archive's lock)."""
+    folder = ctx.paths.root / STAGING_DIR
+    if folder.is_dir():
+        for p in folder.iterdir():
+            try:
+                p.unlink()
+            except OSError:
+                pass
 
 
 def quarantine_file(ctx: Context, outcome: FileOutcome, run_id: int | None = None) -> Path:

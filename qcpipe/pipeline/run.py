@@ -33,7 +33,7 @@ from ..errors import ConfigError
 from ..report.model import Notice, Quarantined, RunSummary
 from ..report.summary import inbox_skip_text
 from .context import Context, load_context
-from .inbox import group_by_deployment, quarantine_file, read_inbox_file
+from .inbox import clear_staging, group_by_deployment, quarantine_file, read_inbox_file
 from .plan import QcPlan, Work, check_deployment_ids, pending_work, plan_qc, unchanged_since_latest
 
 
@@ -215,6 +215,7 @@ def nightly_run(ctx: Context, runner: Runner, work: Work | None = None) -> RunSu
 
     ``work``: what :func:`plan.pending_work` found under the lock this run holds (default: asked here)."""
     run_id = ctx.catalog.start_run("nightly")
+    clear_staging(ctx)
     job = Job.of(ctx, run_id)
     summary = RunSummary(archive=str(ctx.paths.root))
     outcome = "failed"

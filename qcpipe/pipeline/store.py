@@ -9,10 +9,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import xarray as xr
 
 from .. import lineage
-from ..archive.ncio import read_dataset, write_dataset_atomic
+from ..archive.ncio import read_dataset, write_columns_atomic
+from ..arrays import joined
 from ..files import write_text_atomic
 from ..ingest import FileRejected, IngestedFile, RawFile
 from ..ingest.timebase import merge_records
@@ -58,21 +58,19 @@ def load_store(ctx: Context, deployment_id: str) -> Store | None:
 
 
 def write_store(ctx: Context, station_id: str, store: Store) -> None:
-    data = {k: ("time", v, {"units": store.units[k]}) for k, v in store.values.items()}
-    data["source_index"] = ("time", store.source.astype(np.int16))
+    """The store to ``ingested/`` (atomically), slice by slice: a big deployment's store is written in the
+    memory of one slice besides its arrays."""
+    columns = {k: (np.asarray(v, dtype=np.float64), {"units": store.units[k]}) for k, v in store.values.items()}
+    columns["source_index"] = (store.source.astype(np.int16, copy=False), {})
     for k, m in store.conflict.items():
-        data[f"conflict_{k}"] = ("time", m.astype(np.int8))
-    ds = xr.Dataset(data, coords={"time": store.time})
-    ds.attrs = {"title": "qcpipe pre-QC level: merged downloads, UTC, raw units", "deployment_id": store.deployment,
-                "instrument_kind": store.kind, "source_sha256": " ".join(store.sources),
-                "source_names": " ".join(store.names), "units_json": json.dumps(store.units, sort_keys=True),
-                "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s,
-                "ingest_key": store.ingest_key,
-                "file_provenance_json": json.dumps(store.file_provenance, sort_keys=True)}
-    enc = {"time": {"units": "seconds since 1970-01-01T00:00:00Z", "dtype": "float64"}}
-    for k in ds.data_vars:
-        enc[k] = {"zlib": True, "complevel": 4}
-    write_dataset_atomic(ds, ctx.paths.ingested(station_id, store.deployment), enc)
+        columns[f"conflict_{k}"] = (m.view(np.int8) if m.dtype == bool else m.astype(np.int8), {})
+    attrs = {"title": "qcpipe pre-QC level: merged downloads, UTC, raw units", "deployment_id": store.deployment,
+             "instrument_kind": store.kind, "source_sha256": " ".join(store.sources),
+             "source_names": " ".join(store.names), "units_json": json.dumps(store.units, sort_keys=True),
+             "counts_json": json.dumps(store.counts, sort_keys=True), "clock_drift_s": store.clock_drift_s,
+             "ingest_key": store.ingest_key,
+             "file_provenance_json": json.dumps(store.file_provenance, sort_keys=True)}
+    write_columns_atomic(ctx.paths.ingested(station_id, store.deployment), store.time, columns, attrs)
 
 
 def _conflict_csv(path: Path, rows: list[dict], names: list[str], *, fresh: bool = False) -> None:
@@ -136,8 +134,8 @@ def merge_new_files(ctx: Context, deployment_id: str, files: list[IngestedFile],
             counts[key] = counts.get(key, 0) + int(f.counts.get(key, 0))
         drift = f.clock_correction_s
         file_provenance[f.raw.name] = f.provenance
-    merged = merge_records(np.concatenate(times), {k: np.concatenate(v) for k, v in vals.items()},
-                           np.concatenate(srcs), conflict={k: np.concatenate(v) for k, v in prior.items()})
+    merged = merge_records(joined(times), {k: joined(v) for k, v in vals.items()}, joined(srcs),
+                           conflict={k: joined(v) for k, v in prior.items()})
     counts["duplicates"] = counts.get("duplicates", 0) + merged.duplicates
     counts["conflicts"] = conflicting_timestamps(merged.conflict)
     store = Store(dep.id, kind, merged.time, merged.values, units, merged.conflict, merged.source, sources, names,
