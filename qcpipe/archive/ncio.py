@@ -7,6 +7,8 @@ plain module (no Prefect objects), so flows that import it stay picklable.
 
 from __future__ import annotations
 
+import contextlib
+import errno
 import threading
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -46,16 +48,24 @@ def write_dataset_atomic(ds: xarray.Dataset, final: str | Path, encoding: dict |
     final = Path(final)
     with NC_LOCK:
         xarray_module()
-        with atomic_path(final) as tmp:
-            try:
-                ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
-            except RuntimeError as err:          # the netCDF library reports a full disk as "HDF error"
-                import shutil
-
-                if shutil.disk_usage(final.parent).free < 16 * 1024 * 1024:
-                    raise OSError(28, "No space left on device") from err
-                raise
+        with atomic_path(final) as tmp, _full_disk_as_oserror(final):
+            ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding or {})
     return final
+
+
+@contextlib.contextmanager
+def _full_disk_as_oserror(final: Path):
+    """The netCDF library reports a full disk as a RuntimeError ("HDF error"): with less than 16 MB left
+    beside ``final`` it becomes ``OSError(ENOSPC)``, which :func:`qcpipe.files.atomic_path` turns into
+    the one-line "disk full while writing ..."."""
+    try:
+        yield
+    except RuntimeError as err:
+        import shutil
+
+        if shutil.disk_usage(final.parent).free < 16 * 1024 * 1024:
+            raise OSError(errno.ENOSPC, "No space left on device") from err
+        raise
 
 
 #: the time variable of a file written by ``write_columns_atomic``: what xarray writes for datetime64[ns]
@@ -79,7 +89,7 @@ def write_columns_atomic(final: str | Path, time: np.ndarray, columns: dict[str,
 
     final = Path(final)
     ns = np.asarray(time, dtype="datetime64[ns]").view(np.int64)
-    with NC_LOCK, atomic_path(final) as tmp:
+    with NC_LOCK, atomic_path(final) as tmp, _full_disk_as_oserror(final):
         with netCDF4.Dataset(tmp, "w", format="NETCDF4") as nc:
             nc.createDimension("time", ns.size)
             out = {}

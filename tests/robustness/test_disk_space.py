@@ -127,3 +127,29 @@ def test_orchestrator_disk_full_during_the_run_is_one_line(tmp_path):
             mp.setenv("QCPIPE_STATE_DIR", str(tmp_path / "state"))        # a disk with space: the error as it is
             with pytest.raises(RuntimeError, match="500"):
                 _on_orchestrator(Args, ws, server_error)
+
+
+@pytest.mark.parametrize("writer", ["columns", "dataset"])
+def test_netcdf_writers_turn_a_full_disk_into_the_one_line_error(tmp_path, writer):
+    """Both NetCDF writers (the store's column writer, the dataset writer) on a 1 MB disk with a series
+    that cannot fit (random values do not compress): the netCDF library's "HDF error" becomes the
+    one-line disk-full error and no file, not even a temporary one, is left."""
+    import numpy as np
+
+    from qcpipe.archive.ncio import write_columns_atomic, write_dataset_atomic
+    from qcpipe.errors import ArchiveError
+
+    n = 400_000                                   # 3.2 MB of float64 per variable
+    time = np.datetime64("2026-01-01", "ns") + np.arange(n) * np.timedelta64(1, "s")
+    values = np.random.default_rng(1).normal(size=n)
+    with small_tmpfs(tmp_path / "disk", 1) as disk:
+        final = disk / "x.nc"
+        with pytest.raises(ArchiveError, match=r"^disk full while writing .*x\.nc"):
+            if writer == "columns":
+                write_columns_atomic(final, time, {"v": (values, {"units": "1"})}, {"title": "t"})
+            else:
+                import xarray as xr
+
+                write_dataset_atomic(xr.Dataset({"v": ("time", values)}, coords={"time": time}), final,
+                                     {"v": {"zlib": True, "complevel": 4}})
+        assert list(disk.iterdir()) == []
