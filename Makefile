@@ -27,9 +27,10 @@ demo: $(STAMP)
 	$(VENV)/bin/qcpipe process --workspace sample_raw/workspace.toml
 
 ## make test: Debian packages the tests need (libudunits2-0, chromium), test extras, whole suite
+## on two worker processes (pytest-xdist; a file's tests stay on one worker, so its fixtures are built once)
 test: $(TESTSTAMP)
 	@bash tools/ensure-system-libs.sh
-	$(PY) -m pytest -q --durations=15
+	$(PY) -m pytest -q -n 2 --dist loadfile --durations=15
 
 check-config: $(STAMP)
 	$(VENV)/bin/qcpipe check --workspace sample_raw/workspace.toml
