@@ -39,6 +39,8 @@ import time
 import urllib.request
 from pathlib import Path
 
+from ..errors import QcpipeError
+
 #: names the API server this process started for its run (not a server of the user's own)
 EMBEDDED_URL_VAR = "QCPIPE_EMBEDDED_API_URL"
 #: how often the server checks that the run's process still lives, and how long it then has to stop
@@ -83,8 +85,11 @@ def start_embedded_server(home: str | Path) -> str | None:
     log_path = home / "server.log"
     env = {**os.environ, "PREFECT_UI_ENABLED": "0", "PREFECT__SERVER_EPHEMERAL": "1", "PREFECT__SERVER_FINAL": "1"}
     deadline = time.monotonic() + timeout_s
+    home.mkdir(parents=True, exist_ok=True)
     with open(log_path, "ab") as log:
         while True:
+            log.flush()
+            log_start = log_path.stat().st_size
             port = free_port()
             url = f"http://127.0.0.1:{port}/api"
             guard = ["--pdeathsig"] if threading.current_thread() is threading.main_thread() else []
@@ -97,12 +102,30 @@ def start_embedded_server(home: str | Path) -> str | None:
             status = _wait_healthy(proc, url, deadline)
             if status is None:
                 break
-            if status != PORT_TAKEN_STATUS:
-                raise RuntimeError(f"the orchestrator's embedded server did not start (exit status {status}); "
-                                   f"see {log_path}")
+            said = _log_since(log_path, log_start)
+            # uvicorn exits with 3 for a taken port, but also when the app cannot be imported or its start-up
+            # fails (a broken or locked database, a full disk): only a taken port is worth another try
+            if status != PORT_TAKEN_STATUS or "address already in use" not in said.lower():
+                last = next((ln.strip() for ln in reversed(said.splitlines()) if ln.strip()), "no output")
+                raise OrchestratorStartError(f"the orchestrator's embedded server did not start (exit status "
+                                             f"{status}: {last[:200]}); see {log_path}")
     os.environ["PREFECT_API_URL"] = url
     os.environ[EMBEDDED_URL_VAR] = url
     return url
+
+
+class OrchestratorStartError(QcpipeError, RuntimeError):
+    """The run's embedded server could not be started: the command says so in one line."""
+
+
+def _log_since(path: Path, start: int) -> str:
+    """What the server wrote to its log after byte ``start`` (the last 64 kB of it)."""
+    try:
+        with open(path, "rb") as f:
+            f.seek(max(start, path.stat().st_size - 65536))
+            return f.read().decode("utf-8", "replace")
+    except OSError:
+        return ""
 
 
 def _wait_healthy(proc: subprocess.Popen, url: str, deadline: float) -> int | None:
@@ -118,8 +141,9 @@ def _wait_healthy(proc: subprocess.Popen, url: str, deadline: float) -> int | No
             pass
         if time.monotonic() > deadline:
             stop_embedded_servers()
-            raise RuntimeError(f"the orchestrator's embedded server did not answer on {url} in time; raise "
-                               "PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS")
+            raise OrchestratorStartError(f"the orchestrator's embedded server did not answer on {url} in time; "
+                                         "on a slow or busy machine raise "
+                                         "PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS (seconds)")
         time.sleep(0.1)
 
 

@@ -106,8 +106,10 @@ def check_orchestrator_space(home: Path) -> None:
 
 def configure_prefect(home: str | Path) -> None:
     """Point Prefect's state at ``home`` and apply the quiet defaults (call before ``import prefect``)."""
-    home = Path(home)
+    home = Path(home).expanduser()
     home.mkdir(parents=True, exist_ok=True)
+    if os.environ.get("PREFECT_HOME"):       # one spelling for every reader: '~' expanded, as orchestrator_home does
+        os.environ["PREFECT_HOME"] = str(Path(os.environ["PREFECT_HOME"]).expanduser())
     os.environ.setdefault("PREFECT_HOME", str(home))
     for key, value in DEFAULTS.items():
         os.environ.setdefault(key, value)

@@ -70,6 +70,10 @@ class ArchiveLock:
             if err.errno in (errno.ENOSPC, errno.EDQUOT):
                 raise ArchiveError(f"disk full while making the archive's lock file {self.path}: free space on "
                                    "the archive's disk and run again") from None
+            if err.errno in (errno.EACCES, errno.EPERM):     # a shared archive: the lock file made by another user
+                raise ArchiveError(f"cannot open the archive's lock file {self.path} ({err.strerror}): every user "
+                                   "who runs qcpipe on this archive needs write permission on it (for example "
+                                   "'chmod g+w' on the file for a group-shared archive)") from None
             raise
         deadline = time.monotonic() + max(wait_s, 0.0)
         while True:

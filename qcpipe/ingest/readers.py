@@ -628,8 +628,9 @@ def read_raw_file(path: str | Path, layout: Layout, layout_name: str = "", *,
 
     The file is read as a stream and its data lines are parsed ``chunk_lines`` (default ``CHUNK_LINES``) at
     a time, so a read holds the arrays of values and the text of one chunk, whatever the file's size;
-    every count, skipped line and error is what reading the whole file at once gives
-    (tests/ingest/test_chunked_read.py).
+    every count and skipped line is what reading the whole file at once gives, and a file is refused
+    exactly when reading it whole refuses it (tests/ingest/test_chunked_read.py); only the wording of
+    one refusal may differ: a quoted field left open is named by its line, not by the count of records.
 
     ``read_from``: where the file's bytes are read when not at ``path`` (a copy already made and hashed;
     ``path`` still names the file in messages and gives a serial taken from the file name).
@@ -730,10 +731,13 @@ def _read_lines(path: Path, src: Path, lines, layout: Layout, layout_name: str, 
             counts["blank_lines"] += 1
         elif names_line is not None and ln.strip() == names_line:
             counts["skipped_lines"] += 1
-            skipped.append((n_head + i + 1, "column names repeated"))
+            # every line listed so far comes before this one: past LISTED_LINES it would never be listed
+            if len(skipped) < LISTED_LINES:
+                skipped.append((n_head + i + 1, "column names repeated"))
         elif skip_rx is not None and skip_rx.search(ln):
             counts["skipped_lines"] += 1
-            skipped.append((n_head + i + 1, f"not a record: {shown_text(ln)[:80]}"))
+            if len(skipped) < LISTED_LINES:
+                skipped.append((n_head + i + 1, f"not a record: {shown_text(ln)[:80]}"))
         else:
             rec_lines.append(ln)
             numbers.append(n_head + i + 1)

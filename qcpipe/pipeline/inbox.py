@@ -131,13 +131,17 @@ def _stage_copy(src: Path, folder: Path, block: int = 1 << 20) -> tuple[Path, st
     h, size = hashlib.sha256(), 0
     with open(src, "rb") as fin:
         fd, tmp = tempfile.mkstemp(prefix=".", suffix=".tmp", dir=folder)
-        with os.fdopen(fd, "wb") as fout:
-            while chunk := fin.read(block):
-                h.update(chunk)
-                size += len(chunk)
-                fout.write(chunk)
-            fout.flush()
-            os.fsync(fout.fileno())
+        try:
+            with os.fdopen(fd, "wb") as fout:
+                while chunk := fin.read(block):
+                    h.update(chunk)
+                    size += len(chunk)
+                    fout.write(chunk)
+                fout.flush()
+                os.fsync(fout.fileno())
+        except BaseException:          # a full disk or a read error: no partial copy is left behind
+            os.unlink(tmp)
+            raise
     return Path(tmp), h.hexdigest(), size
 
 

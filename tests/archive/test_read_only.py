@@ -14,6 +14,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import os
+import shutil
 import sqlite3
 import subprocess
 import sys
@@ -139,3 +140,44 @@ def test_read_only_catalog_refuses_a_log_it_cannot_read(tmp_path):
             Catalog(folder / "catalog.sqlite")
     con = sqlite3.connect(folder / "catalog.sqlite")      # writable again: the transaction was kept
     assert con.execute("SELECT count(*) FROM runs").fetchone()[0] == 1
+
+
+@pytest.mark.skipif(os.geteuid() != 0, reason="needs root to act as another user (seteuid) in a child")
+def test_a_lock_file_of_another_user_is_one_line():
+    """A group-shared archive: the lock file was made by another user (mode 0644) in a folder everyone
+    may write.  Taking the lock fails with one line saying what permission is missing, no traceback."""
+    import tempfile
+
+    from qcpipe.archive.lock import ArchiveLock
+    from qcpipe.errors import ArchiveError
+
+    root = Path(tempfile.mkdtemp(prefix="qcpipe-shared-", dir="/tmp"))
+    try:
+        root.chmod(0o777)
+        (root / ".lock").write_text("")
+        (root / ".lock").chmod(0o644)                # owned by root
+        read, write = os.pipe()
+        pid = os.fork()
+        if pid == 0:                                 # the child: another user
+            os.close(read)
+            try:
+                os.setegid(65534)
+                os.seteuid(65534)
+                ArchiveLock(root).acquire()
+                answer = "acquired"
+            except ArchiveError as err:
+                answer = f"ArchiveError|{err}"
+            except BaseException as err:             # noqa: BLE001 - reported to the parent
+                answer = f"{type(err).__name__}|{err}"
+            os.write(write, answer.encode())
+            os._exit(0)
+        os.close(write)
+        os.waitpid(pid, 0)
+        answer = os.read(read, 4000).decode()
+        os.close(read)
+    finally:
+        shutil.rmtree(root, ignore_errors=True)
+    kind, _, message = answer.partition("|")
+    assert kind == "ArchiveError", answer
+    assert message.startswith(f"cannot open the archive's lock file {root / '.lock'} (Permission denied)")
+    assert "write permission" in message and "\n" not in message

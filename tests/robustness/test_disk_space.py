@@ -153,3 +153,19 @@ def test_netcdf_writers_turn_a_full_disk_into_the_one_line_error(tmp_path, write
                 write_dataset_atomic(xr.Dataset({"v": ("time", values)}, coords={"time": time}), final,
                                      {"v": {"zlib": True, "complevel": 4}})
         assert list(disk.iterdir()) == []
+
+
+def test_a_staging_copy_that_meets_a_full_disk_leaves_nothing(tmp_path):
+    """An inbox file is copied into <archive>/.staging while it is hashed: on a full disk the copy fails
+    with ENOSPC (the run turns it into the one-line disk-full error) and no partial copy is left."""
+    import errno
+
+    from qcpipe.pipeline.inbox import _stage_copy
+
+    src = tmp_path / "big.csv"
+    src.write_bytes(os.urandom(3 * 2**20))
+    with small_tmpfs(tmp_path / "disk", 1) as disk:
+        with pytest.raises(OSError) as err:
+            _stage_copy(src, disk / ".staging")
+        assert err.value.errno == errno.ENOSPC
+        assert list((disk / ".staging").iterdir()) == []

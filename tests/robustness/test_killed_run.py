@@ -162,3 +162,43 @@ def test_notices_of_a_killed_run_are_shown_by_the_next(tmp_path, monkeypatch):
 
     again = run_sequence("process", ws)
     assert again.returncode == 0 and again.stdout.splitlines() == [lines[0]], again.stdout
+
+
+START_FAILS = r"""
+import sys, time
+import qcpipe.flows.embedded_server as es
+es.uvicorn_args = lambda port: ["--factory", "no_such_module_here:create_app", "--host", "127.0.0.1",
+                                "--port", str(port)]
+t0 = time.monotonic()
+try:
+    es.start_embedded_server(sys.argv[1])
+except es.OrchestratorStartError as err:
+    print(f"{time.monotonic() - t0:.1f}|{err}")
+"""
+
+
+def test_a_server_that_cannot_start_is_one_line_and_not_retried(tmp_path):
+    """uvicorn exits with status 3 both for a taken port (worth another port) and for an app that cannot
+    be loaded (a broken install or database: not worth retrying for the whole start-up timeout).  Here
+    the app cannot be imported: the start gives up after one try, with the server's own last line."""
+    env = {k: v for k, v in os.environ.items() if k not in ("PREFECT_API_URL", "QCPIPE_EMBEDDED_API_URL")}
+    env["PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS"] = "60"
+    done = subprocess.run([sys.executable, "-c", START_FAILS, str(tmp_path / "home")], capture_output=True,
+                          text=True, timeout=120, env=env)
+    seconds, message = done.stdout.strip().split("|", 1)
+    assert float(seconds) < 30, message          # not retried until the 60 s deadline
+    assert message.startswith("the orchestrator's embedded server did not start (exit status 3: ")
+    assert "no_such_module_here" in message and str(tmp_path / "home" / "server.log") in message
+    assert "\n" not in message
+
+
+def test_a_prefect_home_with_a_tilde_is_expanded_for_every_reader(tmp_path):
+    """``PREFECT_HOME=~/x`` set by the user: the settings hand the expanded folder to the embedded server
+    (which opens its log there), not a literal '~' folder under the current one."""
+    env = dict(os.environ, HOME=str(tmp_path), PREFECT_HOME="~/orchestrator")
+    code = ("import os; from qcpipe.flows.prefect_settings import configure_prefect, orchestrator_home; "
+            "configure_prefect(orchestrator_home('/nowhere')); print(os.environ['PREFECT_HOME'])")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, cwd=tmp_path,
+                          timeout=60)
+    assert done.stdout.strip() == str(tmp_path / "orchestrator"), done.stderr
+    assert (tmp_path / "orchestrator").is_dir() and not (tmp_path / "~").exists()
