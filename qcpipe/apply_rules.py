@@ -11,6 +11,14 @@ from . import checks
 from .config.rules import CHECK_ORDER, RuleSet, VariableRules
 
 
+#: windowed checks that can flag nothing on a record shorter than their window: a flat stretch is never
+#: longer than the record, so a flat-line test whose ``suspect_after`` exceeds the record's span would pass
+#: every sample without having looked; it flags 2 (not evaluated) instead.  The spike and rate-of-change
+#: tests still run on such a record: their windows are cut at the record's ends, as they are for the first
+#: and last samples of every record, and each flags 2 itself where a sample has too few neighbours.
+CANNOT_RUN_WHEN_LONGER = frozenset({"flat_line"})
+
+
 def check_windows(rules: VariableRules) -> dict[str, float]:
     """The stretch of record (s) each windowed check of ``rules`` needs to run: the spike test's whole
     window (twice ``half_window``), the rate-of-change window, the flat-line test's ``suspect_after``."""
@@ -46,9 +54,10 @@ def not_evaluated_flags(values) -> np.ndarray:
 def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndarray]:
     """Run every check ``rules`` configures on one variable; returns {check: int8 flags}.
 
-    A check whose window is longer than the record (:func:`windows_longer_than_record`) is not
-    run: it flags 2 (not evaluated) where a value exists."""
-    too_long = windows_longer_than_record(values, times, rules)
+    A check of :data:`CANNOT_RUN_WHEN_LONGER` whose window is longer than the record
+    (:func:`windows_longer_than_record`) is not run: it flags 2 (not evaluated) where a value exists."""
+    too_long = {c: w for c, w in windows_longer_than_record(values, times, rules).items()
+                if c in CANNOT_RUN_WHEN_LONGER}
     if too_long:
         rules = rules.model_copy(update={c: None for c in too_long})
     out: dict[str, np.ndarray] = {c: not_evaluated_flags(values) for c in too_long}
@@ -82,9 +91,10 @@ def flags_for_variable(values, times, rules: VariableRules) -> dict[str, np.ndar
 
 def unevaluated_checks(variables: dict[str, np.ndarray], times, rule_set: RuleSet, station: str,
                        ) -> dict[tuple[str, str], tuple[float, float]]:
-    """{(variable, check): (window s, record span s)} for the checks :func:`apply_rule_set` leaves not
-    evaluated because their window is longer than the record (the longest window of the base and
-    state-aware parameters)."""
+    """{(variable, check): (window s, record span s)} for the checks whose window is longer than the record
+    (the longest window of the base and state-aware parameters): those of :data:`CANNOT_RUN_WHEN_LONGER`
+    are left not evaluated by :func:`apply_rule_set`, the others ran with their windows cut at the
+    record's ends."""
     out: dict[tuple[str, str], tuple[float, float]] = {}
     for name, values in variables.items():
         rules = rule_set.for_variable(name, station)

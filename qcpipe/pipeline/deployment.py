@@ -18,7 +18,7 @@ from ..convert.by_kind import AIR_FROM_CONSTANT, physical_from_raw
 from ..derive import products as derived
 from ..files import atomic_path, copy_atomic, sha256_of_file
 from ..ingest import IngestedFile
-from ..apply_rules import apply_rule_set, flag_counts, unevaluated_checks
+from ..apply_rules import CANNOT_RUN_WHEN_LONGER, apply_rule_set, flag_counts, unevaluated_checks
 from ..report.words import (clock_correction_text, clock_verdict_text, companion_clock_text, elevation_text,
                             no_reference_text, probe_finding_text, reading_counts_texts,
                             window_longer_than_record_text)
@@ -53,7 +53,7 @@ class Prepared:
     sources: dict = field(default_factory=dict)    # per-sample source variables: immersion_source, tide_reference_source
     qc_key: str = ""                               # lineage: what this dataset is made from
     qc_inputs: dict = field(default_factory=dict)
-    unevaluated: dict = field(default_factory=dict)  # (variable, check) -> why it flags 2 (window too long)
+    unevaluated: dict = field(default_factory=dict)  # (variable, check) -> its window is longer than the record
 
 
 def qc_deployment(ctx: Context, deployment_id: str, *, new_files: list[IngestedFile] = (),
@@ -205,7 +205,8 @@ def apply_rules(ctx: Context, p: Prepared) -> tuple[dict, dict]:
                            **p.qc_args)
     for (var, check), (window_s, span_s) in unevaluated_checks(p.qc_vars, p.store.time, ctx.rules,
                                                                p.station.id).items():
-        p.unevaluated[(var, check)] = window_longer_than_record_text(var, check, window_s, span_s)
+        p.unevaluated[(var, check)] = window_longer_than_record_text(
+            var, check, window_s, span_s, evaluated=check not in CANNOT_RUN_WHEN_LONGER)
         p.notices.append(Notice("rules", p.unevaluated[(var, check)], p.station.id, p.dep.id))
     if "tide_residual" in flags.get("water_level", {}):
         res = p.conv.variables["water_level"] - p.qc_args["predicted_level"]

@@ -25,7 +25,7 @@ NOTICE_KINDS = {
     "reading": "Raw file reading",
     "barometer": "Air pressure",
     "rerun": "Re-read",
-    "rules": "Check not evaluated",
+    "rules": "Window longer than the record",
     "run": "Run",
 }
 

@@ -88,11 +88,17 @@ def _duration_words(seconds: float) -> str:
     return f"{seconds:.3g} s"
 
 
-def window_longer_than_record_text(variable: str, check: str, window_s: float, span_s: float) -> str:
-    """A check that did not run because its window is longer than the record."""
-    return (f"{variable}: the {check} check was not evaluated (flag 2): its window, {_duration_words(window_s)}, "
-            f"is longer than the record, {_duration_words(span_s)} from first to last value; shorten the "
-            f"window in the rule set or wait for a longer record")
+def window_longer_than_record_text(variable: str, check: str, window_s: float, span_s: float, *,
+                                   evaluated: bool) -> str:
+    """A check whose window is longer than the record: not run (``evaluated`` False), or run with its window
+    cut at the record's ends."""
+    if not evaluated:
+        return (f"{variable}: the {check} check was not evaluated (flag 2): its window, "
+                f"{_duration_words(window_s)}, is longer than the record, {_duration_words(span_s)} from first "
+                "to last value; shorten the window in the rule set or wait for a longer record")
+    return (f"{variable}: the {check} check's window, {_duration_words(window_s)}, is longer than the record, "
+            f"{_duration_words(span_s)} from first to last value: it ran on the samples the record has (flag 2 "
+            "where a sample had too few); shorten the window in the rule set if that was not meant")
 
 
 def no_reference_text(why: str) -> str:
