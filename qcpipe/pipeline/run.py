@@ -362,11 +362,13 @@ def report_run_dict(ctx: Context, run_id: int, summary: RunSummary) -> dict:
 def report_run(ctx: Context, runner: Runner, run_id: int, summary: RunSummary) -> None:
     """The report of a run that changed something or found notices earlier runs did not show (killed
     or failed before their summary: ``summary.earlier``), station pages in parallel on the runner;
-    a failure to write it is a notice, not a failed run (the data are already committed).  Then
-    every notice so far is recorded as shown by this run."""
+    a failure to write it is a notice, not a failed run (the data are already committed).  Then, when
+    the report was written (or none was needed), every notice so far is recorded as shown by this run."""
     summary.earlier = [(int(n["run_id"]), Notice.from_dict(n)) for n in ctx.catalog.unreported_notices(run_id)]
     if not summary.nothing_new or summary.earlier:
         write_run_reports(ctx, runner, run_id, summary)
+        if not summary.report:         # the report failed: its notices are left for the next run to show
+            return
     try:
         ctx.catalog.mark_notices_reported(run_id)
     except (OSError, sqlite3.Error):

@@ -202,3 +202,25 @@ def test_a_prefect_home_with_a_tilde_is_expanded_for_every_reader(tmp_path):
                           timeout=60)
     assert done.stdout.strip() == str(tmp_path / "orchestrator"), done.stderr
     assert (tmp_path / "orchestrator").is_dir() and not (tmp_path / "~").exists()
+
+
+def test_notices_stay_unshown_when_the_report_cannot_be_written(tmp_path):
+    """The run's report fails (here its folder is a file): the run still succeeds, its notices (clock,
+    quarantine) stay recorded as not shown, and the next run, whose report works, shows them."""
+    from qcpipe.pipeline.context import load_context
+    from qcpipe.pipeline.run import InProcess, nightly_run
+    from tests.conftest import run_sequence
+
+    ws = copy_demo(tmp_path)
+    ctx = load_context(ws)
+    ctx.paths.root.mkdir(parents=True, exist_ok=True)
+    (ctx.paths.root / "reports").write_text("not a folder")
+    first = nightly_run(ctx, InProcess())
+    assert not first.report and any("report was not written" in n.text for n in first.notices)
+    unshown = {n["kind"] for n in load_context(ws).catalog.unreported_notices(10**9)}
+    assert {"clock", "quarantine"} <= unshown, unshown
+    (ctx.paths.root / "reports").unlink()
+    nxt = run_sequence("process", ws)
+    assert nxt.returncode == 0, nxt.stderr
+    assert any("(found by run 1, which stopped before showing it)" in ln for ln in nxt.stdout.splitlines())
+    assert load_context(ws).catalog.unreported_notices(10**9) == []
