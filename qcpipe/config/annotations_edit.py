@@ -21,9 +21,8 @@ from pathlib import Path
 import tomlkit
 
 from ..errors import ConfigError
-from ..files import write_text_atomic
 from .annotations import Annotation, AnnotationFile, Annotations
-from .loading import dumps_like, edited_toml_data, validate
+from .loading import dumps_like, edited_toml_data, rewrite_validated, validate
 
 HEADING = ("# Review annotations: a reviewer's flags over time ranges (format: qcpipe/config/annotations.py).\n"
            "# Written by hand or by 'qcpipe inspect'; comments and layout are kept.\n")
@@ -109,14 +108,6 @@ def edit_annotations(path: str | Path, *, add: Annotation | None = None, replace
     path = Path(path)
     if (add is None) == (remove is None) or (replace is not None and add is None):
         raise ValueError("give add=, add= with replace=, or remove= alone")
-    try:
-        text = path.read_bytes().decode("utf-8") if path.exists() else ""
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"{path}: cannot read the annotations ({err}); check the path") from None
-    new = edited_text(text, path, add=add, replace=replace, remove=remove)
-    try:
-        loaded = validated_annotations_text(new, path)
-    except ConfigError as err:
-        raise ConfigError(f"{err} (the annotations file was left unchanged)") from None
-    write_text_atomic(path, new)
-    return loaded
+    return rewrite_validated(path, "annotations",
+                             lambda text: edited_text(text, path, add=add, replace=replace, remove=remove),
+                             lambda new: validated_annotations_text(new, path), missing_is_empty=True)

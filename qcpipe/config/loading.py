@@ -188,3 +188,26 @@ def edited_toml_data(text: str, path, what: str) -> dict:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{path}: {what} not valid TOML ({err}); the file was left unchanged") from None
+
+
+def rewrite_validated(path, what: str, edit, validate_text, *, missing_is_empty: bool = False):
+    """Replace the configuration file at ``path`` by ``edit(text)`` only if ``validate_text(new)`` accepts it.
+
+    The file is read as UTF-8 (an absent one as "" with ``missing_is_empty``), edited, validated, then
+    written atomically; returns what ``validate_text`` returned.  A file that cannot be read, or an edit
+    that is not valid, is a one-line ConfigError and the file is left unchanged.  ``what``: "register",
+    "annotations" (the file's words in the messages)."""
+    from ..files import write_text_atomic
+
+    path = Path(path)
+    try:
+        text = "" if missing_is_empty and not path.exists() else path.read_bytes().decode("utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise ConfigError(f"{path}: cannot read the {what} ({err}); check the path") from None
+    new = edit(text)
+    try:
+        loaded = validate_text(new)
+    except ConfigError as err:
+        raise ConfigError(f"{err} (the {what} file was left unchanged)") from None
+    write_text_atomic(path, new)
+    return loaded

@@ -14,8 +14,7 @@ from pathlib import Path
 import tomlkit
 
 from ..errors import ConfigError
-from ..files import write_text_atomic
-from .loading import content_sha256, dumps_like, edited_toml_data, validate
+from .loading import content_sha256, dumps_like, edited_toml_data, rewrite_validated, validate
 from .register import LoadedRegister, Register
 
 
@@ -78,17 +77,8 @@ def write_clock_corrections(path: str | Path, corrections: dict[str, dict]) -> L
     ConfigError names file, key and what to do.  Returns the new register.
     """
     path = Path(path)
-    try:
-        text = path.read_bytes().decode("utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"{path}: cannot read the register ({err}); check the path") from None
-    new = with_clock_corrections(text, corrections, path=path)
-    try:
-        loaded = validated_register_text(new, path)
-    except ConfigError as err:
-        raise ConfigError(f"{err} (the register file was left unchanged)") from None
-    write_text_atomic(path, new)
-    return loaded
+    return rewrite_validated(path, "register", lambda text: with_clock_corrections(text, corrections, path=path),
+                             lambda new: validated_register_text(new, path))
 
 
 def check_clock_corrections(path: str | Path, corrections: dict[str, dict]) -> None:
